@@ -155,17 +155,19 @@ class GridSpec:
         )
 
 
-def metric_cell_sizes(grid: GridSpec):
+def metric_cell_sizes(grid: GridSpec, rows=None):
     """Per-row cell sizes in metres of a geographic (degree) grid.
 
     Parameters
     ----------
     grid : GridSpec
         A grid whose CRS is geographic (degrees).
+    rows : array-like of int, optional
+        Rows to compute (may lie outside the grid, for halos); default all rows.
 
     Returns
     -------
-    dx_rows, dy_rows : ndarray of shape (height,)
+    dx_rows, dy_rows : ndarray of shape (len(rows),)
         East-west and north-south spacing of each row in metres, at the latitude
         of the row centre, on the WGS84 ellipsoid.
 
@@ -178,7 +180,7 @@ def metric_cell_sizes(grid: GridSpec):
     if not grid.is_geographic:
         raise CRSError("metric_cell_sizes is for geographic (degree) grids only")
     e2 = WGS84_F * (2.0 - WGS84_F)
-    rows = np.arange(grid.height, dtype=np.float64)
+    rows = np.arange(grid.height, dtype=np.float64) if rows is None else np.asarray(rows, dtype=np.float64)
     lat = np.radians(grid.transform.f + (rows + 0.5) * grid.transform.e)
     s2 = np.sin(lat) ** 2
     n = WGS84_A / np.sqrt(1.0 - e2 * s2)
