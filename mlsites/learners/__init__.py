@@ -1,0 +1,21 @@
+"""Named learner presets and the percentile-fuzzy suitability baseline.
+
+Every learner is a scikit-learn compatible classifier with ``predict_proba`` that
+honours ``sample_weight`` and ``random_state``. Build one by name with
+:func:`make_learner` and fit it with :func:`fit_learner`, which routes sample weights
+to every step that uses them.
+"""
+
+from mlsites.learners._fuzzy import (
+    FuzzySuitability,
+    fuzzy_combine,
+    fuzzy_membership,
+    weighted_percentile,
+)
+
+__all__ = [
+    "FuzzySuitability",
+    "fuzzy_combine",
+    "fuzzy_membership",
+    "weighted_percentile",
+]
