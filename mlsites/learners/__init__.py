@@ -12,9 +12,14 @@ from mlsites.learners._fuzzy import (
     fuzzy_membership,
     weighted_percentile,
 )
+from mlsites.learners._presets import LEARNERS, LayerEncoder, fit_learner, make_learner
 
 __all__ = [
+    "LEARNERS",
     "FuzzySuitability",
+    "LayerEncoder",
+    "fit_learner",
+    "make_learner",
     "fuzzy_combine",
     "fuzzy_membership",
     "weighted_percentile",
