@@ -1,0 +1,25 @@
+"""Site records, presence samples, background samples and value extraction.
+
+``read_sites`` reads and validates site records (points or polygons) onto the study
+grid, ``presence_cells`` turns sites into weighted grid cells, ``sample_background``
+draws background cells (optionally away from sites and restricted to, or weighted by,
+survey coverage) and ``extract_values`` reads layer values at sample cells window by
+window.
+"""
+
+from mlsites.sampling._background import SURVEY_MODES, balance_weights, sample_background
+from mlsites.sampling._extract import extract_values, read_valid_mask
+from mlsites.sampling._presence import presence_cells
+from mlsites.sampling._sites import SiteRecords, check_n_splits, read_sites
+
+__all__ = [
+    "SiteRecords",
+    "read_sites",
+    "check_n_splits",
+    "presence_cells",
+    "sample_background",
+    "balance_weights",
+    "SURVEY_MODES",
+    "extract_values",
+    "read_valid_mask",
+]

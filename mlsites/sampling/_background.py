@@ -1,0 +1,488 @@
+"""Background samples: random study-area cells, optionally kept away from sites and
+restricted to, or weighted by, survey coverage (target-group background).
+"""
+
+from __future__ import annotations
+
+import warnings
+from pathlib import Path
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import shapely
+from pyproj import CRS as ProjCRS
+from scipy.spatial import cKDTree
+
+from mlsites.errors import CRSError, DataQualityWarning, InputError, InsufficientDataError
+from mlsites.grid import GridSpec
+from mlsites.sampling._extract import valid_lookup
+from mlsites.sampling._sites import (
+    SiteRecords,
+    metres_to_crs_units,
+    resolve_rng,
+    sites_in_grid_crs,
+)
+
+__all__ = ["sample_background", "balance_weights", "SURVEY_MODES"]
+
+SURVEY_MODES = ("inside", "weighted")
+BACKGROUND_COLUMNS = ["row", "col", "x", "y", "weight"]
+#: Below this expected acceptance rate, candidates are listed explicitly instead of
+#: drawn by rejection (a rejection draw would need > 200 tries per kept cell).
+MIN_ACCEPT_RATE = 0.005
+#: Above this share of the acceptable cells, sample from an explicit list too.
+MAX_SHARE_FOR_REJECTION = 0.5
+MAX_BATCH = 2_000_000
+
+
+def balance_weights(presence_weight_total: float, n_background: int) -> float:
+    """Weight of each background row so background and presence totals are equal.
+
+    Parameters
+    ----------
+    presence_weight_total : float
+        Sum of presence weights (the number of sites when each site sums to one).
+    n_background : int
+        Number of background rows.
+
+    Returns
+    -------
+    float
+        ``presence_weight_total / n_background``.
+
+    References
+    ----------
+    METHODS.md §7 (balanced weighting; Barbet-Massin et al. 2012,
+    doi:10.1111/j.2041-210X.2011.00172.x): 3 presences and 10 000 background
+    rows give 0.0003.
+    """
+    if not np.isfinite(presence_weight_total) or presence_weight_total <= 0:
+        raise InputError(f"presence_weight_total={presence_weight_total}; expected a positive sum")
+    if int(n_background) < 1:
+        raise InputError(f"n_background={n_background}; expected at least one background row")
+    return float(presence_weight_total) / int(n_background)
+
+
+def sample_background(grid: GridSpec, *, n: int | None = None, fraction: float | None = None,
+                      valid_mask=None, exclude_sites=None, exclusion_m: float = 0.0,
+                      survey=None, survey_mode: str = "inside", effort_field: str | None = None,
+                      random_state=0) -> pd.DataFrame:
+    """Draw background cells at random from the study area, without replacement.
+
+    Parameters
+    ----------
+    grid : GridSpec
+        The study grid.
+    n : int, optional
+        Number of background cells.
+    fraction : float, optional
+        Alternatively, a share in (0, 1] of the valid study-area cells
+        (``n = round(fraction * n_valid)``). Give exactly one of ``n`` and ``fraction``.
+    valid_mask : bool ndarray of the grid shape, raster path or callable, optional
+        Study-area mask (True = usable). None means every cell. A callable
+        ``f(rows, cols)`` cannot be combined with ``fraction``.
+    exclude_sites : SiteRecords, GeoDataFrame or DataFrame with x/y, optional
+        Known sites (points or polygons, or presence cell centres) to keep away from.
+    exclusion_m : float, default 0
+        Cells whose centre lies within this distance (metres, inclusive) of a
+        site point or polygon are not drawn. 0 disables the exclusion.
+    survey : GeoDataFrame or path-like, optional
+        Survey-coverage polygons (areas actually walked or inspected), in any CRS.
+    survey_mode : {"inside", "weighted"}, default "inside"
+        "inside": draw only cells whose centre is inside a survey polygon.
+        "weighted": draw with probability proportional to survey effort
+        (target-group background).
+    effort_field : str, optional
+        Numeric column of ``survey`` with the effort (visits, intensity) for
+        "weighted". Without it every polygon has effort 1. Efforts of
+        overlapping polygons add up.
+    random_state : None, int or numpy Generator, default 0
+        Seed; the same seed and inputs give the same table.
+
+    Returns
+    -------
+    pandas.DataFrame
+        Columns ``row``, ``col`` (int64), ``x``, ``y`` (cell centres, grid CRS)
+        and ``weight`` (1.0; rescale with :func:`balance_weights`), sorted by
+        row and column. ``attrs`` holds ``method`` ("rejection" or
+        "enumeration") and ``n_draws``.
+
+    Raises
+    ------
+    InputError
+        Bad ``n``/``fraction``/``survey_mode``, a survey layer that does not
+        overlap the grid or has bad geometries or efforts.
+    CRSError
+        ``exclusion_m > 0`` on a geographic grid, or a survey layer without CRS.
+    InsufficientDataError
+        Fewer acceptable cells than ``n``.
+
+    Notes
+    -----
+    Sampling is exact and uniform without replacement over the acceptable cells
+    (valid, not excluded, and surveyed in "inside" mode). By default it works by
+    rejection: flat cell indices are drawn uniformly with replacement in batches
+    (over the survey's bounding window when there is a survey), candidates are
+    tested (mask lookup, point-in-polygon for the survey, a k-d tree or
+    polygon-distance query for the exclusion) and the first occurrence of each
+    accepted cell is kept until ``n`` are found. The kept sequence is then a
+    uniform draw without replacement, and no array of all cell indices is built,
+    so a 10 000 x 10 000 grid needs only its boolean mask. When the expected
+    acceptance rate is below 0.5 % or ``n`` is more than half the acceptable
+    cells, the acceptable cells are listed explicitly and drawn with
+    ``Generator.choice``. In "weighted" mode a candidate is accepted with
+    probability effort / (an upper bound of the cell effort), giving successive
+    sampling proportional to effort, i.e. probability-proportional-to-size
+    sampling without replacement. A survey cell is one whose centre lies
+    strictly inside a survey polygon (shapely's point-in-polygon).
+
+    Background here represents what was available to be found where people
+    looked (presence-background view, METHODS.md §7); the exclusion distance
+    turns it into a pseudo-absence design, so leave it at 0 unless that is meant.
+
+    References
+    ----------
+    Phillips, S. J., Dudík, M., Elith, J., Graham, C. H., Lehmann, A., Leathwick,
+    J. & Ferrier, S. (2009). Sample selection bias and presence-only distribution
+    models: implications for background and pseudo-absence data. Ecological
+    Applications 19(1), 181-197. doi:10.1890/07-2153.1
+    """
+    if survey_mode not in SURVEY_MODES:
+        raise InputError(f"survey_mode={survey_mode!r}; expected one of {', '.join(SURVEY_MODES)}")
+    if effort_field is not None and survey is None:
+        raise InputError("effort_field was given without a survey layer; pass survey as well")
+    rng = resolve_rng(random_state)
+    lookup = valid_lookup(valid_mask, grid)
+    mask = getattr(lookup, "mask", None)
+    if lookup is None:
+        n_valid = grid.n_cells
+    elif mask is not None:
+        n_valid = int(np.count_nonzero(mask))
+    else:
+        n_valid = None
+    n = _resolve_n(n, fraction, n_valid)
+    if n_valid is not None and n > n_valid:
+        raise InsufficientDataError(f"{n} background cells requested but the study area has "
+                                    f"{n_valid} valid cells; ask for fewer")
+    excluder = _Excluder.build(exclude_sites, grid, exclusion_m)
+    surv = _Survey.build(survey, grid, survey_mode, effort_field) if survey is not None else None
+
+    r0, c0, h, w = surv.window if surv is not None else (0, 0, grid.height, grid.width)
+    p_valid = 1.0 if n_valid is None else n_valid / grid.n_cells
+    p_est = p_valid * (surv.accept_estimate if surv is not None else 1.0)
+    n_acceptable_est = p_est * h * w
+    if p_est >= MIN_ACCEPT_RATE and n <= MAX_SHARE_FOR_REJECTION * n_acceptable_est:
+        chosen, n_draws = _draw_by_rejection(rng, n, (r0, c0, h, w), grid, lookup, surv,
+                                             excluder, p_est)
+        method = "rejection"
+    else:
+        chosen, n_draws = None, 0
+    if chosen is None:
+        chosen = _draw_by_enumeration(rng, n, grid, lookup, surv, excluder)
+        method = "enumeration"
+
+    chosen = np.sort(chosen)
+    rows, cols = np.divmod(chosen, grid.width)
+    x, y = grid.xy(rows, cols)
+    out = pd.DataFrame({"row": rows.astype(np.int64), "col": cols.astype(np.int64), "x": x,
+                        "y": y, "weight": np.ones(rows.size)}, columns=BACKGROUND_COLUMNS)
+    out.attrs.update(method=method, n_draws=int(n_draws))
+    return out
+
+
+def _resolve_n(n, fraction, n_valid):
+    if (n is None) == (fraction is None):
+        raise InputError("give exactly one of n (a count) and fraction (a share of the study "
+                         f"area) for the background; got n={n}, fraction={fraction}")
+    if n is not None:
+        if int(n) != n or n < 1:
+            raise InputError(f"n={n}; expected a whole number of background cells >= 1")
+        return int(n)
+    if not (0 < fraction <= 1):
+        raise InputError(f"fraction={fraction}; expected a share in (0, 1]")
+    if n_valid is None:
+        raise InputError("fraction needs the study area as a boolean array or raster "
+                         "(valid_mask), not a callable; give n instead")
+    n = int(round(fraction * n_valid))
+    if n < 1:
+        raise InputError(f"fraction={fraction} of {n_valid} valid cells gives no cell; "
+                         "use a larger fraction or n")
+    return n
+
+
+def _accept(flat, u, grid, lookup, surv, excluder):
+    """Boolean acceptance of candidate flat indices (``u`` uniform draws for effort)."""
+    rows, cols = np.divmod(flat, grid.width)
+    ok = np.ones(flat.size, dtype=bool) if lookup is None else lookup(rows, cols)
+    if surv is not None:
+        idx = np.flatnonzero(ok)
+        x, y = grid.xy(rows[idx], cols[idx])
+        effort = surv.effort_at(x, y)
+        ok[idx] = effort > 0 if u is None else u[idx] * surv.max_effort < effort
+    if excluder is not None:
+        idx = np.flatnonzero(ok)
+        x, y = grid.xy(rows[idx], cols[idx])
+        ok[idx] = ~excluder.excluded(x, y)
+    return ok
+
+
+def _draw_by_rejection(rng, n, window, grid, lookup, surv, excluder, p_est):
+    """Uniform draws with replacement, first occurrence of accepted cells kept."""
+    r0, c0, h, w = window
+    weighted = surv is not None and surv.mode == "weighted"
+    kept = []
+    kept_sorted = np.zeros(0, dtype=np.int64)
+    n_kept = n_draws = n_accepted = 0
+    while n_kept < n:
+        rate = n_accepted / n_draws if n_draws else p_est
+        if n_draws >= 200_000 and rate < MIN_ACCEPT_RATE:
+            return None, n_draws
+        batch = int(min(MAX_BATCH, max(1000, 1.2 * (n - n_kept) / max(rate, MIN_ACCEPT_RATE))))
+        local = rng.integers(0, h * w, size=batch, dtype=np.int64)
+        u = rng.random(batch) if weighted else None
+        flat = (r0 + local // w) * grid.width + (c0 + local % w)
+        ok = _accept(flat, u, grid, lookup, surv, excluder)
+        n_draws += batch
+        n_accepted += int(ok.sum())
+        cand = flat[ok]
+        _, first = np.unique(cand, return_index=True)
+        cand = cand[np.sort(first)]
+        if kept_sorted.size:
+            pos = np.searchsorted(kept_sorted, cand)
+            pos[pos == kept_sorted.size] = 0
+            cand = cand[kept_sorted[pos] != cand]
+        cand = cand[: n - n_kept]
+        kept.append(cand)
+        n_kept += cand.size
+        kept_sorted = np.sort(np.concatenate([kept_sorted, cand]))
+    return np.concatenate(kept), n_draws
+
+
+def _draw_by_enumeration(rng, n, grid, lookup, surv, excluder):
+    """List every acceptable cell and draw ``n`` of them without replacement."""
+    if surv is not None:
+        flat, effort = surv.enumerate_cells(grid)
+        rows, cols = np.divmod(flat, grid.width)
+        ok = np.ones(flat.size, dtype=bool) if lookup is None else lookup(rows, cols)
+    else:
+        flat = _valid_flat_indices(grid, lookup)
+        effort = None
+        ok = np.ones(flat.size, dtype=bool)
+    if excluder is not None:
+        idx = np.flatnonzero(ok)
+        rows, cols = np.divmod(flat[idx], grid.width)
+        ok[idx] = ~excluder.excluded(*grid.xy(rows, cols))
+    flat = flat[ok]
+    if n > flat.size:
+        parts = ["valid"]
+        if surv is not None:
+            parts.append("surveyed")
+        if excluder is not None:
+            parts.append(f"farther than {excluder.distance_m:g} m from the sites")
+        raise InsufficientDataError(
+            f"{n} background cells requested but only {flat.size} cells are {' and '.join(parts)}; "
+            "ask for fewer, reduce the exclusion distance or widen the survey"
+        )
+    if surv is not None and surv.mode == "weighted":
+        effort = effort[ok]
+        positive = effort > 0
+        if n > int(positive.sum()):
+            raise InsufficientDataError(f"{n} background cells requested but only "
+                                        f"{int(positive.sum())} surveyed cells have effort > 0")
+        pick = rng.choice(flat.size, size=n, replace=False, p=effort / effort.sum())
+    else:
+        pick = rng.choice(flat.size, size=n, replace=False)
+    return flat[pick]
+
+
+def _valid_flat_indices(grid, lookup):
+    """Flat indices of all valid cells, built strip by strip."""
+    mask = getattr(lookup, "mask", None)
+    if lookup is None:
+        return np.arange(grid.n_cells, dtype=np.int64)
+    out = []
+    strip = max(1, 4_000_000 // grid.width)
+    for r in range(0, grid.height, strip):
+        rr = np.arange(r, min(r + strip, grid.height))
+        if mask is not None:
+            block = mask[rr[0] : rr[-1] + 1]
+        else:
+            rows = np.repeat(rr, grid.width)
+            cols = np.tile(np.arange(grid.width), rr.size)
+            block = lookup(rows, cols).reshape(rr.size, grid.width)
+        out.append(np.flatnonzero(block) + rr[0] * grid.width)
+    return np.concatenate(out).astype(np.int64)
+
+
+class _Excluder:
+    """Distance test of cell centres against site points and polygons."""
+
+    def __init__(self, points_xy, polygons, distance, distance_m):
+        self.tree = cKDTree(points_xy) if len(points_xy) else None
+        self.polys = shapely.STRtree(polygons) if len(polygons) else None
+        self.distance = distance
+        self.distance_m = distance_m
+
+    @classmethod
+    def build(cls, sites, grid, exclusion_m):
+        distance = metres_to_crs_units(grid, exclusion_m, "exclusion_m")
+        if sites is None or distance == 0:
+            return None
+        if isinstance(sites, (SiteRecords, gpd.GeoDataFrame)):
+            geoms = sites_in_grid_crs(sites, grid, "exclude_sites").geometry.to_numpy()
+            geoms = geoms[~(shapely.is_missing(geoms) | shapely.is_empty(geoms))]
+            point = shapely.get_type_id(geoms) == 0
+            xy = np.column_stack([shapely.get_x(geoms[point]), shapely.get_y(geoms[point])])
+            polys = geoms[~point]
+        elif isinstance(sites, pd.DataFrame) and {"x", "y"} <= set(sites.columns):
+            xy = sites[["x", "y"]].to_numpy(dtype=float)
+            polys = np.zeros(0, dtype=object)
+        else:
+            raise InputError("exclude_sites: expected SiteRecords, a GeoDataFrame or a DataFrame "
+                             f"with x and y columns in the grid CRS, got {type(sites).__name__}")
+        if not len(xy) and not len(polys):
+            return None
+        return cls(xy, polys, distance, float(exclusion_m))
+
+    def excluded(self, x, y):
+        out = np.zeros(np.size(x), dtype=bool)
+        if out.size == 0:
+            return out
+        if self.tree is not None:
+            # The bound only prunes the search; the inclusive test is done here.
+            d, _ = self.tree.query(np.column_stack([x, y]),
+                                   distance_upper_bound=self.distance * (1 + 1e-9) + 1e-9)
+            out |= d <= self.distance
+        if self.polys is not None:
+            hit = self.polys.query(shapely.points(x, y), predicate="dwithin",
+                                   distance=self.distance)
+            out[hit[0]] = True
+        return out
+
+
+class _Survey:
+    """Survey-coverage polygons in the grid CRS with effort per polygon."""
+
+    def __init__(self, polygons, effort, mode, window, accept_estimate, max_effort):
+        self.polygons = polygons
+        self.effort = effort
+        self.mode = mode
+        self.window = window
+        self.accept_estimate = accept_estimate
+        self.max_effort = max_effort
+        self.tree = shapely.STRtree(polygons)
+
+    @classmethod
+    def build(cls, survey, grid, mode, effort_field):
+        gdf, source = _read_survey(survey)
+        if gdf.crs is None:
+            raise CRSError(f"{source}: the survey layer has no CRS; assign one to the file")
+        gdf = gdf.reset_index(drop=True)
+        if effort_field is not None and effort_field not in gdf.columns:
+            cols = [str(c) for c in gdf.columns if c != gdf.geometry.name]
+            raise InputError(f"{source}: no effort column {effort_field!r}; columns found: "
+                             f"{', '.join(cols) or 'none'}")
+        geoms = gdf.geometry.to_numpy()
+        empty = shapely.is_missing(geoms) | shapely.is_empty(geoms)
+        if empty.any():
+            warnings.warn(f"{source}: ignored {int(empty.sum())} survey feature(s) with empty "
+                          "geometry", DataQualityWarning, stacklevel=3)
+        gdf = gdf.loc[~empty].reset_index(drop=True)
+        types = set(gdf.geom_type)
+        if not types <= {"Polygon", "MultiPolygon"}:
+            raise InputError(f"{source}: survey layer holds {', '.join(sorted(types))} geometries; "
+                             "expected polygons of the surveyed areas (buffer lines first)")
+        if effort_field is not None:
+            effort = pd.to_numeric(gdf[effort_field], errors="coerce").to_numpy(dtype=float)
+            bad = ~np.isfinite(effort) | (effort < 0)
+            if bad.any():
+                i = int(np.flatnonzero(bad)[0])
+                raise InputError(f"{source}: effort field {effort_field!r} has {int(bad.sum())} "
+                                 f"missing, non-numeric or negative value(s) (first at feature {i}: "
+                                 f"{gdf[effort_field].iloc[i]!r}); expected numbers >= 0")
+        else:
+            effort = np.ones(len(gdf))
+        if not ProjCRS.from_user_input(gdf.crs).equals(ProjCRS.from_user_input(grid.crs)):
+            gdf = gdf.to_crs(grid.crs)
+        polys = shapely.make_valid(gdf.geometry.to_numpy())
+        box = shapely.box(*grid.bounds)
+        clipped = shapely.intersection(polys, box)
+        overlap = ~shapely.is_empty(clipped) & (shapely.area(clipped) > 0)
+        if mode == "weighted":
+            overlap &= effort > 0
+        if not overlap.any():
+            sb, gb = shapely.total_bounds(polys), grid.bounds
+            raise InputError(
+                f"{source}: the survey polygons (x {sb[0]:.6g}..{sb[2]:.6g}, y {sb[1]:.6g}.."
+                f"{sb[3]:.6g}) do not overlap the study grid (x {gb[0]:.6g}..{gb[2]:.6g}, y "
+                f"{gb[1]:.6g}..{gb[3]:.6g})"
+                + ("" if mode == "inside" else " with an effort > 0")
+                + "; check the survey layer and its CRS"
+            )
+        polys, effort, clipped = polys[overlap], effort[overlap], clipped[overlap]
+        window = _bounds_window(shapely.total_bounds(clipped), grid)
+        tree = shapely.STRtree(polys)
+        if mode == "weighted":
+            # Upper bound of the summed effort at any point: a polygon plus all it touches.
+            pairs = tree.query(polys, predicate="intersects")
+            max_effort = float(np.bincount(pairs[0], weights=effort[pairs[1]],
+                                           minlength=len(polys)).max())
+            covered = float((shapely.area(clipped) * effort).sum()) / max_effort
+        else:
+            max_effort = 1.0
+            covered = float(shapely.area(clipped).sum())
+        window_area = window[2] * window[3] * grid.res[0] * grid.res[1]
+        accept = min(1.0, covered / window_area)
+        return cls(polys, effort, mode, window, accept, max_effort)
+
+    def effort_at(self, x, y):
+        """Summed effort of the polygons strictly containing each point (0 outside)."""
+        pairs = self.tree.query(shapely.points(x, y), predicate="within")
+        return np.bincount(pairs[0], weights=self.effort[pairs[1]], minlength=np.size(x))
+
+    def enumerate_cells(self, grid):
+        """Flat indices of all surveyed cells and their summed effort."""
+        flats, efforts = [], []
+        for poly, eff in zip(self.polygons, self.effort):
+            r0, c0, h, w = _bounds_window(poly.bounds, grid)
+            for rs in range(r0, r0 + h, max(1, 1_000_000 // w)):
+                rr = np.arange(rs, min(rs + max(1, 1_000_000 // w), r0 + h))
+                rows = np.repeat(rr, w)
+                cols = np.tile(np.arange(c0, c0 + w), rr.size)
+                x, y = grid.xy(rows, cols)
+                inside = shapely.contains_xy(poly, x, y)
+                flats.append(rows[inside] * grid.width + cols[inside])
+                efforts.append(np.full(int(inside.sum()), eff))
+        flat = np.concatenate(flats)
+        effort = np.concatenate(efforts)
+        flat, inverse = np.unique(flat, return_inverse=True)
+        total = np.bincount(inverse, weights=effort, minlength=flat.size)
+        keep = total > 0 if self.mode == "weighted" else np.ones(flat.size, dtype=bool)
+        return flat[keep], total[keep]
+
+
+def _read_survey(survey):
+    if isinstance(survey, gpd.GeoDataFrame):
+        return survey, "survey layer"
+    if isinstance(survey, (str, Path)):
+        path = Path(survey)
+        if not path.exists():
+            raise InputError(f"{path}: survey layer not found; check the path")
+        try:
+            return gpd.read_file(path), path.name
+        except Exception as exc:
+            first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+            raise InputError(f"{path}: not a vector layer GDAL can read ({first})") from None
+    raise InputError(f"survey: expected a GeoDataFrame or a path, got {type(survey).__name__}")
+
+
+def _bounds_window(bounds, grid):
+    """(row0, col0, height, width) of the cells whose extent meets ``bounds``, clipped."""
+    minx, miny, maxx, maxy = bounds
+    t = grid.transform
+    c_lo = max(int(np.floor((minx - t.c) / t.a)), 0)
+    c_hi = min(int(np.floor((maxx - t.c) / t.a)), grid.width - 1)
+    r_lo = max(int(np.floor((maxy - t.f) / t.e)), 0)
+    r_hi = min(int(np.floor((miny - t.f) / t.e)), grid.height - 1)
+    return r_lo, c_lo, max(r_hi - r_lo + 1, 0), max(c_hi - c_lo + 1, 0)
