@@ -573,7 +573,8 @@ def resolve_columns(spec, n_features, feature_names=None, *, what="columns"):
         bad = [s for s in items if not -n_features <= s < n_features]
         if bad:
             raise InputError(
-                f"{what} has column index(es) {bad} outside the {n_features} columns of X."
+                f"{what} has column index(es) {bad}, but X has {n_features} feature(s); "
+                f"use indices 0 to {n_features - 1} or column names."
             )
         idx = [s % n_features for s in items]
     else:

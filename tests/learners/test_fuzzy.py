@@ -1,0 +1,403 @@
+"""Tests of the percentile-fuzzy suitability baseline.
+
+Expected numbers come from METHODS.md §10 (check values computed there with numpy 2.4;
+operators after Zimmermann & Zysno 1980 and An, Moon & Rencz 1991), from numpy's
+``np.percentile`` (Hyndman & Fan 1996 type 7) and from hand calculations shown in the
+comments. Tolerances: 1e-9 for percentiles and 1e-6 for memberships, as METHODS.md
+§10 states; 1e-12 where two float64 computations of the same quantity are compared.
+"""
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy.optimize import brentq
+from sklearn.utils.estimator_checks import parametrize_with_checks
+
+from mlsites.errors import InputError, InsufficientDataError
+from mlsites.learners import (
+    FuzzySuitability,
+    fuzzy_combine,
+    fuzzy_membership,
+    weighted_percentile,
+)
+
+# METHODS.md §10 check values
+SITES = np.array([12, 15, 18, 20, 22, 25, 27, 30, 35, 48], dtype=float)
+P_EXPECTED = [13.35, 18.5, 29.25, 42.15]
+X_PROBE = np.array([10, 14, 19, 26, 31, 40, 50], dtype=float)
+MU_LINEAR = [0, 0.126214, 1, 1, 0.864341, 0.166667, 0]
+MU_COSINE = [0, 0.038793, 1, 1, 0.955275, 0.066987, 0]
+
+
+@pytest.fixture
+def global_random_seed():
+    return 20240611
+
+
+def _sites_and_background(values, background=(0.0, 100.0)):
+    X = np.concatenate([values, background])[:, None]
+    y = np.r_[np.ones(len(values)), np.zeros(len(background))]
+    return X, y
+
+
+# -- weighted percentiles -------------------------------------------------------------
+
+
+def test_percentiles_match_methods_check_values():
+    # METHODS.md §10: P5, P25, P75, P95 = 13.35, 18.5, 29.25, 42.15, tol 1e-9
+    got = weighted_percentile(SITES, [5, 25, 75, 95])
+    np.testing.assert_allclose(got, P_EXPECTED, rtol=0, atol=1e-9)
+    # the weighted path with equal (non-unit) weights must give the same numbers
+    got_w = weighted_percentile(SITES, [5, 25, 75, 95], np.full(SITES.size, 0.37))
+    np.testing.assert_allclose(got_w, P_EXPECTED, rtol=0, atol=1e-9)
+
+
+@pytest.mark.parametrize("n", [2, 3, 7, 50])
+def test_equal_weights_equal_numpy_linear(n, global_random_seed):
+    # reference: np.percentile(method="linear"), Hyndman & Fan (1996) type 7
+    rng = np.random.default_rng(global_random_seed + n)
+    x = np.round(rng.normal(size=n), 1)  # rounding creates ties
+    q = np.linspace(0, 100, 41)
+    expected = np.percentile(x, q, method="linear")
+    got = weighted_percentile(x, q, np.full(n, 2.5))
+    np.testing.assert_allclose(got, expected, rtol=1e-12, atol=1e-12)
+
+
+def _brute_force_weighted_percentile(x, q, w):
+    """Loop version of the definition: p_k = (weight before k) / (W - w_k)."""
+    pairs = sorted((xi, wi) for xi, wi in zip(x, w) if wi > 0)
+    xs = [p[0] for p in pairs]
+    ws = [p[1] for p in pairs]
+    total = sum(ws)
+    positions, before = [], 0.0
+    for wk in ws:
+        positions.append(before / (total - wk))
+        before += wk
+    out = []
+    for qi in np.atleast_1d(q) / 100.0:
+        for k in range(len(xs) - 1):
+            if positions[k] <= qi <= positions[k + 1]:
+                t = (qi - positions[k]) / (positions[k + 1] - positions[k])
+                out.append(xs[k] + t * (xs[k + 1] - xs[k]))
+                break
+    return np.array(out)
+
+
+def test_weighted_percentile_hand_example():
+    # hand calculation from the definition: x = (1, 2, 3), w = (1, 2, 1), W = 4;
+    # positions 0/3 = 0, 1/2 = 0.5, 3/3 = 1, so P25 = 1.5, P50 = 2, P75 = 2.5
+    got = weighted_percentile([3, 1, 2], [0, 25, 50, 75, 100], [1, 1, 2])
+    np.testing.assert_allclose(got, [1, 1.5, 2, 2.5, 3], rtol=0, atol=1e-12)
+
+
+def test_weighted_percentile_brute_force_and_invariances(global_random_seed):
+    rng = np.random.default_rng(global_random_seed)
+    x = rng.normal(size=40)
+    w = rng.uniform(0.1, 3.0, size=40)
+    q = np.linspace(0, 100, 21)
+    got = weighted_percentile(x, q, w)
+    np.testing.assert_allclose(got, _brute_force_weighted_percentile(x, q, w), atol=1e-12)
+    # scale invariance, row-order invariance
+    np.testing.assert_allclose(weighted_percentile(x, q, 7.0 * w), got, rtol=1e-12, atol=1e-12)
+    perm = rng.permutation(40)
+    np.testing.assert_allclose(weighted_percentile(x[perm], q, w[perm]), got, atol=1e-12)
+    # sign reversal maps P_q to -P_(100-q) (values are untied)
+    np.testing.assert_allclose(
+        weighted_percentile(-x, 100 - q, w), -got, rtol=1e-12, atol=1e-12
+    )
+    # zero weight equals dropping the row
+    w0 = w.copy()
+    w0[:10] = 0
+    np.testing.assert_allclose(
+        weighted_percentile(x, q, w0), weighted_percentile(x[10:], q, w[10:]), atol=1e-12
+    )
+    # P0 and P100 are the extremes
+    assert weighted_percentile(x, 0, w) == x.min()
+    assert weighted_percentile(x, 100, w) == x.max()
+
+
+def test_weighted_percentile_heavy_row_pulls_towards_it():
+    base = weighted_percentile(SITES, 50, np.ones(10))
+    heavy = np.ones(10)
+    heavy[-1] = 20.0  # the value 48
+    assert weighted_percentile(SITES, 50, heavy) > base
+
+
+def test_weighted_percentile_single_value_and_errors():
+    assert weighted_percentile([4.0, 9.0], 30, [0, 2]) == 9.0
+    with pytest.raises(InputError, match="All sample weights are zero"):
+        weighted_percentile([1.0, 2.0], 50, [0, 0])
+    with pytest.raises(InputError, match=r"\[0, 100\]"):
+        weighted_percentile([1.0, 2.0], 101)
+    with pytest.raises(InputError, match="non-finite"):
+        weighted_percentile([1.0, np.nan], 50)
+    with pytest.raises(InputError, match="negative"):
+        weighted_percentile([1.0, 2.0], 50, [1, -1])
+
+
+# -- membership functions ------------------------------------------------------------
+
+
+@pytest.mark.parametrize("shape, expected", [("linear", MU_LINEAR), ("cosine", MU_COSINE)])
+def test_membership_check_values(shape, expected):
+    # METHODS.md §10: memberships at x = (10, 14, 19, 26, 31, 40, 50), tol 1e-6
+    got = fuzzy_membership(X_PROBE, P_EXPECTED, shape=shape)
+    np.testing.assert_allclose(got, expected, rtol=0, atol=1e-6)
+
+
+@pytest.mark.parametrize("shape, expected", [("linear", MU_LINEAR), ("cosine", MU_COSINE)])
+def test_estimator_reproduces_check_values(shape, expected):
+    # METHODS.md §10, end to end: control points from the sites, then memberships
+    X, y = _sites_and_background(SITES)
+    model = FuzzySuitability(shape=shape).fit(X, y)
+    np.testing.assert_allclose(model.control_points_[0], P_EXPECTED, rtol=0, atol=1e-9)
+    proba = model.predict_proba(X_PROBE[:, None])
+    np.testing.assert_allclose(proba[:, 1], expected, rtol=0, atol=1e-6)
+    np.testing.assert_allclose(proba.sum(axis=1), 1.0, rtol=0, atol=1e-12)
+    # predict thresholds mu at 0.5 (mu = 0.166667 -> background, 0.864341 -> site)
+    np.testing.assert_array_equal(model.predict(X_PROBE[:, None]), np.array(expected) > 0.5)
+
+
+def test_degenerate_limbs_are_steps():
+    # METHODS.md §10: a = b (or c = d) -> step, no division by zero; plateau is closed
+    with np.errstate(all="raise"):
+        got = fuzzy_membership([1.0, 2.0, 2.5, 3.0, 3.5], [2, 2, 3, 3], shape="linear")
+        got_c = fuzzy_membership([1.0, 2.0, 2.5, 3.0, 3.5], [2, 2, 3, 3], shape="cosine")
+    np.testing.assert_array_equal(got, [0, 1, 1, 1, 0])
+    np.testing.assert_array_equal(got_c, [0, 1, 1, 1, 0])
+    # all sites share one value: membership 1 only at that value
+    X, y = _sites_and_background(np.full(6, 5.0))
+    model = FuzzySuitability().fit(X, y)
+    np.testing.assert_array_equal(model.predict_proba([[4.9], [5.0], [5.1]])[:, 1], [0, 1, 0])
+
+
+def test_monotone_memberships():
+    # METHODS.md §10: monotone versions use c = d = +inf or a = b = -inf
+    X, y = _sites_and_background(SITES)
+    inc = FuzzySuitability(monotone={0: "increasing"}).fit(X, y)
+    dec = FuzzySuitability(monotone=["decreasing"]).fit(X, y)
+    np.testing.assert_array_equal(inc.control_points_[0, 2:], [np.inf, np.inf])
+    np.testing.assert_array_equal(dec.control_points_[0, :2], [-np.inf, -np.inf])
+    with np.errstate(all="raise"):
+        mu_inc = inc.predict_proba(X_PROBE[:, None])[:, 1]
+        mu_dec = dec.predict_proba(X_PROBE[:, None])[:, 1]
+    # rising limb as in MU_LINEAR, then 1; falling limb as in MU_LINEAR, 1 before it
+    np.testing.assert_allclose(mu_inc, [0, 0.126214, 1, 1, 1, 1, 1], rtol=0, atol=1e-6)
+    np.testing.assert_allclose(mu_dec, [1, 1, 1, 1, 0.864341, 0.166667, 0], rtol=0, atol=1e-6)
+
+
+def test_membership_rejects_bad_control_points():
+    with pytest.raises(InputError, match="non-decreasing"):
+        fuzzy_membership([1.0], [3, 2, 4, 5])
+    with pytest.raises(InputError, match="pairs"):
+        fuzzy_membership([1.0], [-np.inf, 2, 4, 5])
+    with pytest.raises(InputError, match="shape"):
+        fuzzy_membership([1.0], [1, 2, 3, 4], shape="bell")
+
+
+# -- operators -----------------------------------------------------------------------
+
+
+@pytest.mark.parametrize(
+    "operator, gamma, expected",
+    [
+        # METHODS.md §10, mu = (0.8, 0.2), tol 1e-6
+        ("and", 0.9, 0.2),
+        ("or", 0.9, 0.8),
+        ("product", 0.9, 0.16),
+        ("sum", 0.9, 0.84),
+        ("gamma", 0.5, 0.366606),
+        ("gamma", 0.75, 0.554932),
+        ("gamma", 0.9, 0.711645),
+        # gamma = 0 and 1 reduce to product and sum (METHODS.md §10)
+        ("gamma", 0.0, 0.16),
+        ("gamma", 1.0, 0.84),
+    ],
+)
+def test_operator_check_values_two_layers(operator, gamma, expected):
+    got = fuzzy_combine([0.8, 0.2], operator=operator, gamma=gamma)
+    assert got == pytest.approx(expected, abs=1e-6)
+
+
+@pytest.mark.parametrize(
+    "operator, expected",
+    # METHODS.md §10, mu = (0.7, 0.5, 0.9): FAP 0.315, FAS 0.985, gamma 0.9 -> 0.878868
+    [("product", 0.315), ("sum", 0.985), ("gamma", 0.878868)],
+)
+def test_operator_check_values_three_layers(operator, expected):
+    got = fuzzy_combine([[0.7, 0.5, 0.9]], operator=operator, gamma=0.9)
+    np.testing.assert_allclose(got, [expected], rtol=0, atol=1e-6)
+
+
+@pytest.mark.parametrize("target, expected", [(0.8, 0.970577), (0.2, 0.134567)])
+def test_gamma_root_finding(target, expected):
+    # METHODS.md §10: gamma at which mu_gamma = 0.8 and 0.2 for mu = (0.8, 0.2)
+    def excess(g):
+        return fuzzy_combine([0.8, 0.2], operator="gamma", gamma=g) - target
+
+    root = brentq(excess, 0.0, 1.0, xtol=1e-12)
+    assert root == pytest.approx(expected, abs=1e-6)
+
+
+def test_gamma_handles_zero_memberships():
+    # 0**0 = 1: with a zero layer FAP = 0, and gamma = 1 must still give FAS
+    with np.errstate(all="raise"):
+        assert fuzzy_combine([0.0, 0.5], operator="gamma", gamma=1.0) == pytest.approx(0.5)
+        assert fuzzy_combine([0.0, 0.0], operator="gamma", gamma=0.0) == 0.0
+
+
+def test_estimator_combines_layers_like_reference():
+    # two layers; reference: per-layer memberships from METHODS.md §10 (layer 1 is the
+    # check-value layer, layer 2 its mirror image), combined with NumPy formulas
+    X = np.column_stack([np.r_[SITES, 0, 100], -np.r_[SITES, 0, 100]])
+    y = np.r_[np.ones(10), 0, 0]
+    probe = np.column_stack([X_PROBE, -X_PROBE[::-1]])
+    mu1 = np.array(MU_LINEAR)
+    mu2 = np.array(MU_LINEAR)[::-1]
+    fap, fas = mu1 * mu2, 1 - (1 - mu1) * (1 - mu2)
+    for operator, expected in [
+        ("and", np.minimum(mu1, mu2)),
+        ("or", np.maximum(mu1, mu2)),
+        ("gamma", fas**0.7 * fap**0.3),
+    ]:
+        model = FuzzySuitability(operator=operator, gamma=0.7).fit(X, y)
+        got = model.predict_proba(probe)[:, 1]
+        np.testing.assert_allclose(got, expected, rtol=0, atol=1e-5)
+        np.testing.assert_allclose(
+            model.predict_memberships(probe), np.column_stack([mu1, mu2]), atol=1e-6
+        )
+
+
+# -- categorical layers, weights, input types ----------------------------------------
+
+
+def test_categorical_membership_is_share_over_max_share():
+    # sites: 3 x "ridge", 1 x "valley", 2 x "terrace"; background adds "plain".
+    # hand calculation: shares 3/6, 1/6, 2/6 -> divided by max 3/6 -> 1, 1/3, 2/3
+    land = np.array(["ridge"] * 3 + ["valley"] + ["terrace"] * 2 + ["plain", "ridge"])
+    X = pd.DataFrame({"landform": land, "height": np.arange(8.0)})
+    y = np.r_[np.ones(6), 0, 0]
+    model = FuzzySuitability(categorical_features=["landform"], operator="and").fit(X, y)
+    memberships = model.category_memberships_[0]
+    assert memberships == pytest.approx({"ridge": 1.0, "valley": 1 / 3, "terrace": 2 / 3})
+    probe = pd.DataFrame({"landform": ["valley", "plain", "moraine"], "height": [2.5] * 3})
+    # unseen category ("moraine") and a category without sites ("plain") give 0
+    np.testing.assert_allclose(model.predict_memberships(probe)[:, 0], [1 / 3, 0, 0])
+    assert np.isnan(model.control_points_[0]).all()
+    # with weights: ridge sites weighted 0.5 each (1.5), valley 3, terrace 1 each (2)
+    w = np.r_[0.5, 0.5, 0.5, 3.0, 1.0, 1.0, 1.0, 1.0]
+    weighted = FuzzySuitability(categorical_features=[0]).fit(X, y, sample_weight=w)
+    assert weighted.category_memberships_[0] == pytest.approx(
+        {"ridge": 0.5, "valley": 1.0, "terrace": 2 / 3}
+    )
+
+
+def test_numeric_category_codes_in_arrays():
+    # codes stored as floats at fit and ints at predict must still match
+    X = np.column_stack([[1.0, 1.0, 2.0, 3.0, 3.0], [5.0, 6.0, 7.0, 8.0, 9.0]])
+    y = np.array([1, 1, 1, 0, 0])
+    model = FuzzySuitability(categorical_features=[0]).fit(X, y)
+    probe = np.array([[1, 7], [2, 7], [3, 7]], dtype=object)
+    np.testing.assert_allclose(model.predict_memberships(probe)[:, 0], [1.0, 0.5, 0.0])
+
+
+def test_zero_weights_equal_dropping_rows_and_scale_invariance(global_random_seed):
+    rng = np.random.default_rng(global_random_seed)
+    X = rng.normal(size=(60, 3))
+    y = (rng.random(60) < 0.5).astype(int)
+    w = rng.uniform(0.2, 2.0, size=60)
+    w[:15] = 0.0
+    probe = rng.normal(size=(30, 3))
+    kwargs = dict(operator="gamma", gamma=0.6, shape="cosine")
+    weighted = FuzzySuitability(**kwargs).fit(X, y, sample_weight=w)
+    dropped = FuzzySuitability(**kwargs).fit(X[15:], y[15:], sample_weight=w[15:])
+    scaled = FuzzySuitability(**kwargs).fit(X, y, sample_weight=10 * w)
+    np.testing.assert_allclose(weighted.control_points_, dropped.control_points_, atol=1e-12)
+    np.testing.assert_allclose(weighted.control_points_, scaled.control_points_, atol=1e-12)
+    np.testing.assert_allclose(
+        weighted.predict_proba(probe), dropped.predict_proba(probe), atol=1e-12
+    )
+    # weights must matter: unweighted control points differ
+    plain = FuzzySuitability(**kwargs).fit(X, y)
+    assert not np.allclose(plain.control_points_, weighted.control_points_)
+
+
+def test_dataframe_and_array_give_same_predictions(global_random_seed):
+    rng = np.random.default_rng(global_random_seed)
+    frame = pd.DataFrame(
+        {
+            "elevation": rng.normal(300, 50, 80),
+            "soil": rng.choice(["a", "b", "c"], 80),
+            "slope": rng.gamma(2.0, 3.0, 80),
+        }
+    )
+    y = (rng.random(80) < 0.4).astype(int)
+    by_name = FuzzySuitability(categorical_features=["soil"], monotone={"slope": "decreasing"})
+    by_index = FuzzySuitability(categorical_features=[1], monotone=[None, None, "decreasing"])
+    by_name.fit(frame, y)
+    by_index.fit(frame.to_numpy(dtype=object), y)
+    np.testing.assert_array_equal(by_name.feature_names_in_, ["elevation", "soil", "slope"])
+    assert not hasattr(by_index, "feature_names_in_")
+    np.testing.assert_array_equal(
+        by_name.predict_proba(frame), by_index.predict_proba(frame.to_numpy(dtype=object))
+    )
+
+
+def test_string_class_labels_use_the_larger_label_as_sites():
+    X, _ = _sites_and_background(SITES)
+    y = np.array(["site"] * 10 + ["background"] * 2)
+    model = FuzzySuitability().fit(X, y)
+    np.testing.assert_array_equal(model.classes_, ["background", "site"])
+    np.testing.assert_allclose(model.control_points_[0], P_EXPECTED, atol=1e-9)
+
+
+@pytest.mark.parametrize(
+    "params, y, error, match",
+    [
+        ({}, [0, 1, 2, 1, 0, 2], InputError, "Only binary classification"),
+        ({"operator": "xor"}, [0, 1] * 3, InputError, "Unknown operator"),
+        ({"shape": "bell"}, [0, 1] * 3, InputError, "Unknown shape"),
+        ({"gamma": 1.5}, [0, 1] * 3, InputError, "gamma must be"),
+        ({"percentiles": (5, 75, 25, 95)}, [0, 1] * 3, InputError, "non-decreasing"),
+        ({"percentiles": (5, 25, 95)}, [0, 1] * 3, InputError, "4 non-decreasing"),
+        ({"categorical_features": ["soil"]}, [0, 1] * 3, InputError, "no column names"),
+        ({"categorical_features": [7]}, [0, 1] * 3, InputError, r"\[7\], but X has 2 feature\(s\)"),
+        ({"monotone": ["up", None]}, [0, 1] * 3, InputError, "monotone entry"),
+        ({"monotone": {0: "increasing"}, "categorical_features": [0]}, [0, 1] * 3,
+         InputError, "cannot be monotone"),
+    ],
+)
+def test_errors(params, y, error, match):
+    X = np.arange(12.0).reshape(6, 2)
+    with pytest.raises(error, match=match):
+        FuzzySuitability(**params).fit(X, np.array(y))
+
+
+def test_error_when_no_weighted_site():
+    X, y = _sites_and_background(SITES)
+    w = np.r_[np.zeros(10), 1.0, 1.0]
+    with pytest.raises(InsufficientDataError, match="positive weight"):
+        FuzzySuitability().fit(X, y, sample_weight=w)
+
+
+def test_error_names_column_with_missing_category():
+    X = pd.DataFrame({"soil": ["a", None, "b", "a"], "h": [1.0, 2.0, 3.0, 4.0]})
+    with pytest.raises(InputError, match="'soil' has 1 missing"):
+        FuzzySuitability(categorical_features=["soil"]).fit(X, [1, 1, 0, 0])
+
+
+# -- scikit-learn estimator contract -------------------------------------------------
+
+
+@parametrize_with_checks(
+    [
+        FuzzySuitability(),
+        FuzzySuitability(operator="gamma", shape="cosine", categorical_features=[0]),
+        FuzzySuitability(operator="or", monotone={1: "increasing"}),
+    ],
+    # none needed: the one-class semantics are declared through tags instead
+    # (multi_class=False, poor_score=True)
+    expected_failed_checks=lambda est: {},
+)
+def test_sklearn_compatible(estimator, check):
+    check(estimator)
