@@ -378,7 +378,6 @@ class _Survey:
         gdf, source = _read_survey(survey)
         if gdf.crs is None:
             raise CRSError(f"{source}: the survey layer has no CRS; assign one to the file")
-        gdf = gdf.reset_index(drop=True)
         if effort_field is not None and effort_field not in gdf.columns:
             cols = [str(c) for c in gdf.columns if c != gdf.geometry.name]
             raise InputError(f"{source}: no effort column {effort_field!r}; columns found: "
@@ -388,24 +387,30 @@ class _Survey:
         if empty.any():
             warnings.warn(f"{source}: ignored {int(empty.sum())} survey feature(s) with empty "
                           "geometry", DataQualityWarning, stacklevel=3)
-        gdf = gdf.loc[~empty].reset_index(drop=True)
-        types = set(gdf.geom_type)
-        if not types <= {"Polygon", "MultiPolygon"}:
-            raise InputError(f"{source}: survey layer holds {', '.join(sorted(types))} geometries; "
+        type_ids = shapely.get_type_id(geoms[~empty])
+        if not np.isin(type_ids, [3, 6]).all():  # Polygon, MultiPolygon
+            types = sorted({g.geom_type for g in geoms[~empty]})
+            raise InputError(f"{source}: survey layer holds {', '.join(types)} geometries; "
                              "expected polygons of the surveyed areas (buffer lines first)")
         if effort_field is not None:
+            raw = gdf[effort_field].to_numpy(dtype=object)
             effort = pd.to_numeric(gdf[effort_field], errors="coerce").to_numpy(dtype=float)
-            bad = ~np.isfinite(effort) | (effort < 0)
+            bad = (~np.isfinite(effort) | (effort < 0)) & ~empty
             if bad.any():
                 i = int(np.flatnonzero(bad)[0])
                 raise InputError(f"{source}: effort field {effort_field!r} has {int(bad.sum())} "
                                  f"missing, non-numeric or negative value(s) (first at feature {i}: "
-                                 f"{gdf[effort_field].iloc[i]!r}); expected numbers >= 0")
+                                 f"{raw[i]!r}); expected numbers >= 0")
+            effort = effort[~empty]
         else:
-            effort = np.ones(len(gdf))
+            effort = np.ones(int((~empty).sum()))
+        geoms = geoms[~empty]
         if not ProjCRS.from_user_input(gdf.crs).equals(ProjCRS.from_user_input(grid.crs)):
-            gdf = gdf.to_crs(grid.crs)
-        polys = shapely.make_valid(gdf.geometry.to_numpy())
+            geoms = gpd.GeoSeries(geoms, crs=gdf.crs).to_crs(grid.crs).to_numpy()
+        polys = np.array(geoms, dtype=object)
+        invalid = ~shapely.is_valid(polys)
+        if invalid.any():
+            polys[invalid] = shapely.make_valid(polys[invalid])
         box = shapely.box(*grid.bounds)
         clipped = shapely.intersection(polys, box)
         overlap = ~shapely.is_empty(clipped) & (shapely.area(clipped) > 0)

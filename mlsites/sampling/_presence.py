@@ -184,7 +184,7 @@ def _polygon_cells(i: int, geom, grid: GridSpec):
     rows = cols = np.zeros(0, dtype=np.int64)
     if c_hi >= c_lo and r_hi >= r_lo:
         shape = (r_hi - r_lo + 1, c_hi - c_lo + 1)
-        window_transform = t * Affine.translation(c_lo, r_lo)
+        window_transform = t @ Affine.translation(c_lo, r_lo)
         burned = rasterize([(geom, 1)], out_shape=shape, transform=window_transform, fill=0,
                            dtype="uint8", all_touched=False)
         rr, cc = np.nonzero(burned)
