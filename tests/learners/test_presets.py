@@ -66,11 +66,11 @@ def table(global_random_seed):
     )
     score = (frame["elevation"] - 250) / 40 - frame["water_distance"] / 300
     score += np.where(frame["landform"] == "ridge", 1.0, 0.0)
-    y = (rng.random(n) < 1 / (1 + np.exp(-2 * score))).astype(int)
+    y = (rng.random(n) < 1 / (1 + np.exp(-2 * score.to_numpy()))).astype(int)
     # balanced weighting, METHODS.md §7: total background weight = total site weight
     w = np.where(y == 1, 1.0, y.sum() / (n - y.sum()))
     probe = frame.iloc[:20].copy()
-    return frame, y.to_numpy() if hasattr(y, "to_numpy") else y, w, probe
+    return frame, y, w, probe
 
 
 def _make(name, seed=0, **extra):
