@@ -1,0 +1,279 @@
+"""Build the one sample table and the one fold assignment of an experiment.
+
+Terrain layers are derived once and cached by a hash of the DEM and the terrain
+settings; presences and background are drawn on the study grid, layer values read
+at their cells, and folds assigned once. Every learner later loads the same
+table and folds, so comparisons are fair by construction.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import shutil
+import tempfile
+import time
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from mlsites import __version__
+from mlsites.errors import InputError, InsufficientDataError, OutputExistsError
+
+__all__ = ["SampleSet", "derive_layers", "prepare_samples", "FEATURE_EXCLUDED", "file_digest"]
+
+#: Terrain outputs that are not used as model features (codes, circular or redundant).
+FEATURE_EXCLUDED = {"aspect", "flow_direction", "filled_dem", "streams", "flow_accumulation"}
+SAMPLE_COLUMNS = ["sample_id", "label", "weight", "site_id", "fold", "x", "y", "row", "col"]
+
+
+@dataclass(frozen=True)
+class SampleSet:
+    """The sample table and where it was written.
+
+    ``table`` has the columns of :data:`SAMPLE_COLUMNS` then one column per feature;
+    ``features`` and ``categorical`` name the feature columns; ``folder`` holds
+    ``samples.parquet``, ``folds.csv``, ``blocks.gpkg`` (block folds only),
+    ``dropped_records.csv`` and ``sampling.json``.
+    """
+
+    table: pd.DataFrame
+    features: list
+    categorical: list
+    folder: Path
+    summary: dict
+
+
+def file_digest(path, *, chunk=1 << 22) -> str:
+    """SHA-256 of a file's bytes (for manifests and caches)."""
+    h = hashlib.sha256()
+    with open(path, "rb") as f:
+        while block := f.read(chunk):
+            h.update(block)
+    return h.hexdigest()
+
+
+def _settings_digest(obj) -> str:
+    return hashlib.sha256(json.dumps(obj, sort_keys=True, default=str).encode()).hexdigest()[:16]
+
+
+def derive_layers(exp, cache_dir, *, fresh=False, quiet=False, log=None) -> dict:
+    """Terrain and distance layers of an experiment, computed once and cached.
+
+    Returns a dict layer name -> (path, kind). The cache folder's name is a hash of
+    the DEM bytes, the vector files and the terrain settings, so a second run reuses
+    it and any change recomputes it; ``fresh`` recomputes regardless.
+    """
+    from mlsites.terrain import TerrainSettings, compute_terrain
+
+    t = exp["terrain"]
+    settings = TerrainSettings(
+        layers=tuple(t["layers"]),
+        tpi_radii_m=tuple(float(r) for r in t["tpi_radii_m"]),
+        landform_lookup_cells=t["landform_lookup_cells"],
+        landform_flatness_deg=float(t["landform_flatness_deg"]),
+        stream_threshold_km2=float(t["stream_threshold_km2"]),
+        vectors=dict(exp["distances"]),
+        stream_vector=t["stream_lines"],
+    )
+    key = {
+        "dem": file_digest(exp["study"]["dem"]),
+        "vectors": {n: file_digest(p) for n, p in exp["distances"].items()},
+        "stream_lines": file_digest(t["stream_lines"]) if t["stream_lines"] else None,
+        "settings": settings.__dict__, "version": __version__,
+    }
+    folder = Path(cache_dir) / f"terrain-{_settings_digest(key)}"
+    if fresh and folder.exists():
+        shutil.rmtree(folder)
+    if not (folder / "terrain.json").exists():
+        compute_terrain(exp["study"]["dem"], folder, settings, overwrite=True, quiet=quiet, log=log)
+    elif log:
+        log(f"terrain layers: cached in {folder.name}")
+    summary = json.loads((folder / "terrain.json").read_text())
+    layers = {n: (folder / info["file"], "categorical" if n == "landform" else "continuous")
+              for n, info in summary["layers"].items() if n not in FEATURE_EXCLUDED}
+    for n, spec in exp["inputs"].items():
+        layers[n] = (Path(spec["path"]), spec["kind"])
+    return layers
+
+
+def _assign_folds(exp, table, features, categorical, grid, rng_seed, log):
+    from mlsites.folds import (
+        BufferedLeaveOneSiteOut,
+        EnvironmentalFolds,
+        RandomFolds,
+        SpatialBlockFolds,
+        suggest_block_size,
+    )
+
+    f = exp["folds"]
+    method, k = f["method"], f["n_splits"]
+    site = np.where(table["label"].to_numpy() == 1, table["site_id"].to_numpy(), None)
+    x, y = table["x"].to_numpy(), table["y"].to_numpy()
+    info: dict = {"method": method, "n_splits": k}
+    blocks = None
+    if method in ("square_blocks", "hexagon_blocks"):
+        size = f["block_size_m"]
+        if size is None:
+            bg = table["label"].to_numpy() == 0
+            cont = [c for c in features if c not in categorical]
+            sug = suggest_block_size(x[bg], y[bg], {c: table.loc[bg, c].to_numpy() for c in cont},
+                                     random_state=rng_seed)
+            size = float(sug.block_size)
+            info["variogram"] = sug.table.to_dict(orient="records")
+            if log:
+                log(f"block size from predictor variograms: {size:.0f} m ({sug.rule})")
+        splitter = SpatialBlockFolds(x, y, site_id=site, block_size=size, n_splits=k,
+                                     kind="square" if method == "square_blocks" else "hexagon",
+                                     origin=(grid.bounds[0], grid.bounds[1]), random_state=rng_seed)
+        assignment = splitter.assign(crs=grid.crs)
+        fold, blocks = assignment.fold, assignment.blocks
+        info["block_size_m"] = size
+    elif method == "buffered_leave_one_out":
+        fold = BufferedLeaveOneSiteOut(x, y, site, buffer=f["buffer_m"]).fold_array()
+        info["buffer_m"] = f["buffer_m"]
+    elif method == "environmental":
+        cont = [c for c in features if c not in categorical]
+        fold = EnvironmentalFolds(k, random_state=rng_seed).fold_array(
+            table[cont].to_numpy(), table["label"].to_numpy(), groups=site)
+    else:
+        fold = RandomFolds(k, random_state=rng_seed).fold_array(
+            table[features].to_numpy(), table["label"].to_numpy(), groups=site)
+    return np.asarray(fold, dtype=np.int64), blocks, info
+
+
+def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, log=None) -> SampleSet:
+    """Build and write the sample table and folds of an experiment.
+
+    Parameters
+    ----------
+    exp : Experiment
+    out_dir : path-like
+        Folder for the sample files; must not hold them already unless ``fresh``.
+    cache_dir : path-like, optional
+        Where derived terrain layers are cached (default ``out_dir/../cache``).
+    fresh : bool
+        Recompute cached layers and replace existing sample files.
+
+    Returns
+    -------
+    SampleSet
+
+    Notes
+    -----
+    Presence weights are ``1 / n_cells`` per site (each site counts once); the
+    background weights are balanced so their total equals the total presence
+    weight (METHODS.md §7). Samples whose cells lack a value in some layer (edges
+    of neighbourhood layers, holes in an input raster) are removed and counted by
+    layer; a site that loses all its cells is listed in ``dropped_records.csv``
+    with the reason, and the weights of partly affected sites are renormalised.
+    """
+    from mlsites.grid import read_grid
+    from mlsites.sampling import (
+        balance_weights,
+        extract_values,
+        presence_cells,
+        read_sites,
+        read_valid_mask,
+        sample_background,
+    )
+    from mlsites.sampling._sites import check_n_splits
+
+    log = log or (lambda m: None)
+    out_dir = Path(out_dir)
+    if (out_dir / "samples.parquet").exists() and not fresh:
+        raise OutputExistsError(f"{out_dir}: sample files exist already; use --fresh or another folder")
+    seed = exp["study"]["seed"]
+    t0 = time.perf_counter()
+    dem = exp["study"]["dem"]
+    grid = read_grid(dem)
+    layers = derive_layers(exp, cache_dir or out_dir.parent / "cache", fresh=fresh, quiet=quiet, log=log)
+    valid = read_valid_mask(dem, grid)
+    s = exp["sites"]
+    if not s["path"]:
+        raise InputError(f"{exp.path}: [sites] path is missing; give the site records file")
+    records = read_sites(s["path"], grid, id_field=s["id_field"], x_field=s["x_field"], y_field=s["y_field"],
+                         crs=s["crs"], start_field=s["start_field"], end_field=s["end_field"],
+                         kind_field=s["kind_field"], certainty_field=s["certainty_field"], layer=s["layer"],
+                         valid_mask=valid)
+    log(records.summary())
+    records.check_n_splits(exp["folds"]["n_splits"])
+    sa = exp["sampling"]
+    pres = presence_cells(records, grid, buffer_m=sa["site_buffer_m"], valid_mask=valid,
+                          one_cell_per_site=sa["one_cell_per_site"], random_state=seed)
+    bg = sample_background(grid, n=None if sa["background_fraction"] else sa["background_count"],
+                           fraction=sa["background_fraction"], valid_mask=valid, exclude_sites=records,
+                           exclusion_m=sa["exclusion_m"], survey=sa["survey_areas"],
+                           survey_mode=sa["survey_mode"], effort_field=sa["effort_field"], random_state=seed)
+    del valid
+    table = pd.concat([pres.assign(label=1), bg.assign(label=0, site_id="")], ignore_index=True)
+    names = list(layers)
+    values = extract_values({n: p for n, (p, _) in layers.items()}, table["row"].to_numpy(),
+                            table["col"].to_numpy(), grid, kinds={n: k for n, (_, k) in layers.items()})
+    table = pd.concat([table, values], axis=1)
+    dropped_rows = [{"source_row": r, "site_id": i, "reason": why}
+                    for r, i, why in zip(records.dropped["source_row"], records.dropped["site_id"],
+                                         records.dropped["reason"])]
+    dropped_rows += [{"source_row": None, "site_id": d["site_id"], "reason": d["reason"]}
+                     for d in pres.attrs.get("dropped", [])]
+    missing = table[names].isna()
+    counts = {"presence_cells_missing_values": int(missing.any(axis=1)[table["label"] == 1].sum()),
+              "background_cells_missing_values": int(missing.any(axis=1)[table["label"] == 0].sum()),
+              "missing_by_layer": {n: int(missing[n].sum()) for n in names if missing[n].any()}}
+    before = set(table.loc[table["label"] == 1, "site_id"])
+    table = table[~missing.any(axis=1)].reset_index(drop=True)
+    after = set(table.loc[table["label"] == 1, "site_id"])
+    for sid in sorted(before - after):
+        dropped_rows.append({"source_row": None, "site_id": sid, "reason": "no cell with values in every layer"})
+    if counts["presence_cells_missing_values"] or counts["background_cells_missing_values"]:
+        log(f"removed {counts['presence_cells_missing_values']} site cells and "
+            f"{counts['background_cells_missing_values']} background cells lacking a layer value "
+            f"({', '.join(f'{k}: {v}' for k, v in counts['missing_by_layer'].items())})")
+    check_n_splits(len(after), exp["folds"]["n_splits"], source=str(s["path"]))
+    pmask = table["label"] == 1
+    table.loc[pmask, "weight"] = 1.0 / table[pmask].groupby("site_id")["site_id"].transform("size")
+    if sa["one_cell_per_site"]:
+        table.loc[pmask, "weight"] = 1.0
+    n_bg = int((~pmask).sum())
+    if n_bg == 0:
+        raise InsufficientDataError("no background cell has values in every layer; check the input layers")
+    table.loc[~pmask, "weight"] = balance_weights(float(table.loc[pmask, "weight"].sum()), n_bg)
+    categorical = [n for n, (_, k) in layers.items() if k == "categorical"]
+    fold, blocks, fold_info = _assign_folds(exp, table, names, categorical, grid, seed, log)
+    table["fold"] = fold
+    table.insert(0, "sample_id", np.arange(len(table), dtype=np.int64))
+    table = table[SAMPLE_COLUMNS + names]
+    summary = {
+        "software": f"mlsites {__version__}", "seed": seed,
+        "n_sites_read": records.n_read, "n_sites_used": len(after),
+        "n_presence_cells": int(pmask.sum()), "n_background_cells": n_bg,
+        "removed": counts, "folds": fold_info, "features": names, "categorical": categorical,
+        "fold_table": table.groupby("fold").agg(n_samples=("label", "size"), n_presence_cells=("label", "sum"),
+                                                n_sites=("site_id", lambda v: int((v != "").sum() and v[v != ""].nunique())))
+                           .reset_index().to_dict(orient="records"),
+        "seconds": round(time.perf_counter() - t0, 2),
+    }
+    _write_outputs(out_dir, table, blocks, pd.DataFrame(dropped_rows, columns=["source_row", "site_id", "reason"]),
+                   summary)
+    return SampleSet(table=table, features=names, categorical=categorical, folder=out_dir, summary=summary)
+
+
+def _write_outputs(out_dir: Path, table, blocks, dropped, summary):
+    out_dir.mkdir(parents=True, exist_ok=True)
+    staging = Path(tempfile.mkdtemp(prefix=".samples-partial-", dir=out_dir))
+    try:
+        table.to_parquet(staging / "samples.parquet", index=False)
+        table[["sample_id", "fold"]].to_csv(staging / "folds.csv", index=False)
+        if blocks is not None:
+            blocks.to_file(staging / "blocks.gpkg", layer="blocks", driver="GPKG")
+        dropped.to_csv(staging / "dropped_records.csv", index=False)
+        (staging / "sampling.json").write_text(json.dumps(summary, indent=2, default=str))
+        for p in staging.iterdir():
+            os.replace(p, out_dir / p.name)
+        if blocks is None and (out_dir / "blocks.gpkg").exists():
+            (out_dir / "blocks.gpkg").unlink()
+    finally:
+        shutil.rmtree(staging, ignore_errors=True)
