@@ -1,5 +1,6 @@
 """Evaluation: validation measures and potential zones for held-out sites."""
 
+from mlsites.evaluation._crossval import CrossValResult, cross_validate, write_crossval
 from mlsites.evaluation._metrics import (
     DEFAULT_TOP_AREA_SHARES,
     DEFAULT_ZONE_TARGETS,
@@ -40,4 +41,7 @@ __all__ = [
     "zone_gains",
     "zone_density_gini",
     "NODATA_ZONE",
+    "CrossValResult",
+    "cross_validate",
+    "write_crossval",
 ]

@@ -1,0 +1,617 @@
+"""Spatial cross-validation of several learners on the same saved folds.
+
+Every learner is trained and scored on exactly the same splits of one sample table
+(site cells and background cells, see ``mlsites.experiment`` for how it is built).
+Per fold and pooled over folds the held-out scores go through
+:func:`mlsites.evaluation.evaluate_scores`; a summary ranks the learners and compares
+each with the best one across folds; zones and curves come from the pooled
+out-of-fold scores.
+"""
+
+import os
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from mlsites.errors import InputError, InsufficientDataError
+from mlsites.evaluation._metrics import (
+    DEFAULT_TOP_AREA_SHARES,
+    DEFAULT_ZONE_TARGETS,
+    capture_curve,
+    evaluate_scores,
+)
+from mlsites.evaluation._zones import assign_zones, zone_table, zone_thresholds
+
+__all__ = ["CrossValResult", "cross_validate", "write_crossval"]
+
+#: Fold label of the pooled out-of-fold row in ``CrossValResult.by_fold``.
+POOLED_FOLD = "all"
+
+# Folds needed before the paired comparison switches from the t-test to Wilcoxon's
+# signed-rank test (common practice: below 6 pairs the exact two-sided Wilcoxon
+# p-value cannot go below 2/2^5 = 0.0625).
+_MIN_FOLDS_WILCOXON = 6
+
+_COUNT_COLUMNS = ["n_train", "n_test_site_cells", "n_test_sites", "n_test_background"]
+# evaluate_scores counts duplicate n_test_site_cells and n_test_background
+_DROPPED_KEYS = ("n_sites", "n_landscape")
+_FLOAT_FORMAT = "%.10g"
+
+
+@dataclass(frozen=True)
+class CrossValResult:
+    """Result of :func:`cross_validate`.
+
+    Attributes
+    ----------
+    by_fold : pandas.DataFrame
+        One row per learner and fold, plus one pooled row per learner with
+        ``fold == "all"``: ``learner``, ``fold``, ``n_train``, ``n_test_site_cells``,
+        ``n_test_sites``, ``n_test_background``, ``landscape`` ("held_out" or
+        "all_background", see Notes of :func:`cross_validate`), then the measures
+        of :func:`evaluate_scores` (``auc``, ``boyce``, ``captured_top_10`` ...,
+        ``gini_zones``).
+    summary : pandas.DataFrame
+        One row per learner, best first: ``learner``, ``rank``, ``n_folds``,
+        ``<measure>_mean`` and ``<measure>_sd`` over folds, ``auc_pooled``,
+        ``auc_diff_vs_best`` (mean over folds of this learner's AUC minus the
+        best learner's), ``p_value_vs_best`` and ``test_vs_best``.
+    zones : pandas.DataFrame
+        Per learner, the zone table of the pooled out-of-fold scores (columns of
+        :func:`zone_table`) plus ``heldout_area_share`` and ``heldout_site_share``:
+        the zones as each fold maps them from its training sites, pooled.
+    oof : pandas.DataFrame
+        ``sample_id``, ``learner``, ``fold``, ``score``: every held-out prediction.
+    curves : pandas.DataFrame
+        Long form ``learner``, ``curve`` ("capture" or "roc"), ``x``, ``y``.
+    """
+
+    by_fold: pd.DataFrame
+    summary: pd.DataFrame
+    zones: pd.DataFrame
+    oof: pd.DataFrame
+    curves: pd.DataFrame
+
+
+# --------------------------------------------------------------------- checks
+
+
+def _check_table(table, features, categorical, fold_column, splitter):
+    if not isinstance(table, pd.DataFrame):
+        raise InputError(f"table is a {type(table).__name__}; expected the sample table as a pandas DataFrame.")
+    features = [features] if isinstance(features, str) else list(features)
+    if not features:
+        raise InputError("features is empty; name at least one feature column of the sample table.")
+    needed = ["sample_id", "label", "weight", "site_id"] + features
+    if splitter is None:
+        needed.append(fold_column)
+    missing = [c for c in needed if c not in table.columns]
+    if missing:
+        raise InputError(
+            f"column(s) {missing} not in the sample table; available columns: {list(table.columns)}. "
+            f"Check the feature names and fold_column={fold_column!r}."
+        )
+    bad_cat = [c for c in categorical if c not in features]
+    if bad_cat:
+        raise InputError(f"categorical column(s) {bad_cat} are not among features {features}; list them in both.")
+    if len(table) == 0:
+        raise InsufficientDataError("the sample table is empty; build samples before cross-validating.")
+    label = table["label"].to_numpy()
+    if not np.all(np.isin(label, (0, 1))):
+        raise InputError(
+            f"column 'label' holds {sorted(set(pd.unique(label)) - {0, 1})[:5]}; expected 1 for site cells, 0 for background."
+        )
+    weight = table["weight"].to_numpy(dtype=np.float64)
+    if not np.all(np.isfinite(weight) & (weight >= 0)):
+        row = int(np.flatnonzero(~(np.isfinite(weight) & (weight >= 0)))[0])
+        raise InputError(f"column 'weight' is {weight[row]!r} at row {row}; weights must be finite and >= 0.")
+    if table["sample_id"].duplicated().any():
+        dup = table["sample_id"][table["sample_id"].duplicated()].iloc[0]
+        raise InputError(f"sample_id {dup!r} appears more than once; every sample needs its own id.")
+    return features, label.astype(np.int64), weight
+
+
+def _check_learners(learners):
+    if not isinstance(learners, Mapping) or not learners:
+        raise InputError(
+            f"learners={learners!r}; expected a non-empty dict of name to a zero-argument "
+            f"callable that returns a fresh estimator, e.g. {{'logistic': lambda: make_learner('logistic')}}."
+        )
+    for name, factory in learners.items():
+        if not isinstance(name, str) or not name or not callable(factory):
+            raise InputError(
+                f"learner {name!r}: expected a non-empty name and a zero-argument callable returning "
+                f"an unfitted estimator, got {type(factory).__name__}."
+            )
+    return dict(learners)
+
+
+def _site_codes(site_id, label):
+    """Integer code per site (-1 for background), from the site_id of site cells."""
+    codes = np.full(label.size, -1, dtype=np.int64)
+    pres = label == 1
+    if pres.any():
+        codes[pres] = pd.factorize(pd.Series(np.asarray(site_id, dtype=object)[pres]).astype(str))[0]
+    return codes
+
+
+def _make_splits(table, fold_column, splitter, X, label, codes):
+    if splitter is None:
+        from mlsites.folds import PrecomputedFolds
+
+        fold = table[fold_column].to_numpy()
+        if np.issubdtype(np.asarray(fold).dtype, np.number) and np.any(fold < 0):
+            raise InputError(
+                f"column {fold_column!r} holds negative fold numbers ({int((fold < 0).sum())} rows), as "
+                f"buffered leave-one-site-out writes for background; pass splitter=BufferedLeaveOneSiteOut(...) "
+                f"so the buffer is honoured."
+            )
+        splitter = PrecomputedFolds(fold)
+    groups = np.where(codes >= 0, codes, -1)
+    splits = [(np.asarray(tr, dtype=np.int64), np.asarray(te, dtype=np.int64))
+              for tr, te in splitter.split(X, label, groups)]
+    if len(splits) < 2:
+        raise InsufficientDataError(
+            f"the splitter gave {len(splits)} fold(s); at least 2 are needed to cross-validate. "
+            f"Use more folds or smaller blocks."
+        )
+    for k, (train, test) in enumerate(splits):
+        n_test_sites = int((label[test] == 1).sum())
+        if n_test_sites == 0:
+            raise InsufficientDataError(
+                f"Fold {k} has no site cells among its {test.size} test rows; every fold must hold "
+                f"held-out sites. Use fewer folds or a different block size."
+            )
+        for what, value in (("site", 1), ("background", 0)):
+            if not (label[train] == value).any():
+                raise InsufficientDataError(
+                    f"Fold {k} has no {what} cells among its {train.size} training rows; a learner needs "
+                    f"both. Use fewer folds or a different block size."
+                )
+    return splits
+
+
+# --------------------------------------------------------------------- one task
+
+
+def _with_seed(estimator, seed):
+    """Set every ``random_state`` parameter (pipeline steps included) to ``seed``."""
+    try:
+        keys = [k for k in estimator.get_params(deep=True) if k == "random_state" or k.endswith("__random_state")]
+    except AttributeError:
+        return estimator
+    if keys:
+        estimator.set_params(**{k: int(seed) for k in keys})
+    return estimator
+
+
+def _fit_and_score(factory, seed, X, label, weight, train, test, train_sites):
+    """Fit one fresh estimator; return its scores on the test rows and training sites."""
+    from mlsites.learners import fit_learner
+
+    est = _with_seed(factory(), seed)
+    fit_learner(est, X.iloc[train], label[train], sample_weight=weight[train])
+    rows = np.concatenate((test, train_sites))
+    proba = np.asarray(est.predict_proba(X.iloc[rows]))
+    if proba.ndim != 2 or proba.shape[1] != 2:
+        raise InputError(
+            f"{type(est).__name__}.predict_proba returned shape {proba.shape}; expected (n, 2) for the "
+            f"labels 0 (background) and 1 (site)."
+        )
+    scores = proba[:, 1].astype(np.float64)
+    if not np.all(np.isfinite(scores)):
+        raise InputError(f"{type(est).__name__} predicted {int((~np.isfinite(scores)).sum())} non-finite score(s).")
+    return scores[: test.size], scores[test.size :]
+
+
+def _fold_landscape(test, label, background_rows):
+    """Landscape rows of a fold: held-out background, else all background outside the test."""
+    held = test[label[test] == 0]
+    if held.size:
+        return held, "held_out"
+    return np.setdiff1d(background_rows, test), "all_background"
+
+
+def _report(progress, message):
+    if progress is None:
+        return
+    if hasattr(progress, "update"):
+        progress.update(1)
+    else:
+        progress(message)
+
+
+# --------------------------------------------------------------------- summary
+
+
+def _paired_test(diff):
+    """Two-sided paired test of fold differences; returns (p, test name)."""
+    diff = diff[np.isfinite(diff)]
+    if diff.size < 2:
+        return np.nan, ""
+    name = "wilcoxon" if diff.size >= _MIN_FOLDS_WILCOXON else "ttest_rel"
+    if np.all(diff == 0):
+        return 1.0, name
+    if name == "wilcoxon":
+        return float(stats.wilcoxon(diff).pvalue), name
+    # ttest_rel(a, b) is the one-sample t-test of a - b against 0
+    return float(stats.ttest_1samp(diff, 0.0).pvalue), name
+
+
+def _summarise(by_fold, metric_columns):
+    folds = by_fold[by_fold["fold"] != POOLED_FOLD]
+    pooled = by_fold[by_fold["fold"] == POOLED_FOLD].set_index("learner")
+    rows = []
+    for name, group in folds.groupby("learner", sort=False):
+        row = {"learner": name, "n_folds": int(len(group))}
+        for col in metric_columns:
+            values = group[col].astype(np.float64)
+            row[f"{col}_mean"] = float(values.mean())
+            row[f"{col}_sd"] = float(values.std(ddof=1))
+        row["auc_pooled"] = float(pooled.loc[name, "auc"])
+        rows.append(row)
+    summary = pd.DataFrame(rows)
+    boyce = summary["boyce_mean"].fillna(-np.inf)
+    order = np.lexsort((summary["learner"].to_numpy(), -boyce.to_numpy(), -summary["auc_mean"].to_numpy()))
+    summary = summary.iloc[order].reset_index(drop=True)
+    summary.insert(1, "rank", np.arange(1, len(summary) + 1))
+    best = summary["learner"].iloc[0]
+    auc = folds.pivot(index="fold", columns="learner", values="auc").astype(np.float64)
+    diffs, pvals, tests = [], [], []
+    for name in summary["learner"]:
+        if name == best:
+            diffs.append(np.nan)
+            pvals.append(np.nan)
+            tests.append("")
+            continue
+        d = (auc[name] - auc[best]).to_numpy()
+        p, test = _paired_test(d)
+        diffs.append(float(np.nanmean(d)) if np.isfinite(d).any() else np.nan)
+        pvals.append(p)
+        tests.append(test)
+    summary["auc_diff_vs_best"] = diffs
+    summary["p_value_vs_best"] = pvals
+    summary["test_vs_best"] = tests
+    return summary
+
+
+# --------------------------------------------------------------------- main
+
+
+def cross_validate(
+    table,
+    *,
+    features,
+    categorical=(),
+    learners,
+    fold_column="fold",
+    splitter=None,
+    random_state=0,
+    zone_targets=DEFAULT_ZONE_TARGETS,
+    top_area_shares=DEFAULT_TOP_AREA_SHARES,
+    n_jobs=1,
+    progress=None,
+):
+    """Train and score every learner on the same spatial folds.
+
+    Parameters
+    ----------
+    table : pandas.DataFrame
+        Sample table with columns ``sample_id``, ``label`` (1 site cell, 0
+        background), ``weight`` (site cells ``1 / n_cells`` of their site,
+        background balanced), ``site_id`` and ``fold_column``, plus the features.
+    features : sequence of str
+        Feature columns passed to the learners (as a DataFrame, in this order).
+    categorical : sequence of str, default ()
+        Categorical features; only checked here (the learner factories must
+        already know them, e.g. ``make_learner(..., categorical_features=...)``).
+    learners : dict of str to callable
+        Learner name to a zero-argument callable returning a fresh, unfitted
+        estimator with ``predict_proba``; called once per fold.
+    fold_column : str, default "fold"
+        Column with the saved fold of each sample, 0 .. k-1 (read through
+        :class:`mlsites.folds.PrecomputedFolds`).
+    splitter : object, optional
+        Any splitter with ``split(X, y, groups)`` yielding ``(train, test)`` index
+        arrays, e.g. :class:`mlsites.folds.BufferedLeaveOneSiteOut`; replaces
+        ``fold_column``. ``groups`` is an integer site code, -1 for background.
+    random_state : int or None, default 0
+        Seed of the integer seeds given to each (learner, fold) fit.
+    zone_targets : mapping of str to float, default {"high": 0.70, "medium": 0.90}
+        Cumulative share of sites each zone must hold, from the top.
+    top_area_shares : sequence of float, default (0.10, 0.20, 0.33)
+        Area shares for ``captured_top_*`` and ``gain_top_*``.
+    n_jobs : int, default 1
+        Parallel (learner, fold) fits with joblib; results do not depend on it.
+    progress : callable or tqdm-like, optional
+        Called with a one-line message after each (learner, fold) fit, or its
+        ``update(1)`` if it has one.
+
+    Returns
+    -------
+    CrossValResult
+
+    Raises
+    ------
+    InputError
+        Unknown feature or fold column, bad labels, weights or learners.
+    InsufficientDataError
+        A fold with no site cell among its test rows, or no site or background
+        cell among its training rows (checked before any fit).
+
+    Notes
+    -----
+    For fold k a fresh estimator is fitted on the training rows with
+    :func:`mlsites.learners.fit_learner` and the sample weights; its score is
+    ``predict_proba[:, 1]``. Every parameter named ``random_state`` (also inside a
+    pipeline) is set to an integer seed drawn, before any fit, from
+    ``numpy.random.default_rng(random_state)`` as a (learner, fold) matrix in the
+    order of ``learners``; so the same seed gives the same results for any
+    ``n_jobs``.
+
+    Held-out measures of fold k (:func:`evaluate_scores`): the test site cells
+    with their weights as ``site_weight`` (each site counts once) against the test
+    background cells, weight 1, as ``landscape_scores``. A fold whose test rows hold
+    no background (buffered leave-one-site-out without ``background_in_test``)
+    uses the fold model's scores of all background cells outside the test rows
+    instead; column ``landscape`` says which was used.
+
+    Zone thresholds of fold k come from the **training** sites' in-sample scores
+    (:func:`zone_thresholds` with the training weights), so the held-out
+    ``site_share_high`` tests the zones as they would be mapped. A learner that
+    overfits its training sites (e.g. fully grown trees) scores them too high, sets
+    the thresholds too high and captures fewer held-out sites than the target; that
+    is a true finding about the mapped zones, not a bug.
+
+    The pooled row (``fold == "all"``) evaluates all held-out scores of the folds
+    together (site cells with their weights, landscape cells of every fold with
+    weight 1); its zone thresholds come from these pooled held-out site scores, so
+    its zone shares meet the targets by construction. ``zones`` lists those pooled
+    zones and, in ``heldout_area_share`` and ``heldout_site_share``, the pooled
+    shares when every fold uses its own training thresholds. ``curves`` holds the
+    capture curve (share of sites against share of area, from
+    :func:`capture_curve`) and the ROC curve (``sklearn.metrics.roc_curve``, site
+    cells weighted) of the pooled scores; with a background sample of equal weights
+    as landscape the two coincide, computed independently.
+
+    The summary ranks learners by mean fold AUC, descending (ties: mean Boyce
+    index, then name). Means and standard deviations (ddof = 1) skip folds where a
+    measure is undefined (NaN, e.g. gain with no site in the zone). Each learner is
+    compared with the best on the fold AUCs: ``auc_diff_vs_best`` is the mean
+    difference and ``p_value_vs_best`` a two-sided paired test of the differences,
+    Wilcoxon's signed-rank test (``scipy.stats.wilcoxon``) with 6 folds or more,
+    else the paired t-test (as ``scipy.stats.ttest_rel``); 1 when all differences
+    are 0, NaN for the best learner itself. Folds are not independent samples, so
+    read the p-value as a guide, not an exact error rate.
+
+    References
+    ----------
+    Roberts, D.R. et al. (2017). Cross-validation strategies for data with temporal,
+    spatial, hierarchical, or phylogenetic structure. Ecography 40:913-929.
+    doi:10.1111/ecog.02881
+    """
+    from joblib import Parallel, delayed
+
+    features, label, weight = _check_table(table, features, categorical, fold_column, splitter)
+    learners = _check_learners(learners)
+    if isinstance(random_state, bool) or not (random_state is None or isinstance(random_state, (int, np.integer))):
+        raise InputError(f"random_state={random_state!r}; expected an integer seed (or None).")
+    codes = _site_codes(table["site_id"].to_numpy(), label)
+    X = table[features].reset_index(drop=True)
+    splits = _make_splits(table, fold_column, splitter, X, label, codes)
+    n_folds = len(splits)
+    seeds = np.random.default_rng(random_state).integers(0, 2**31 - 1, size=(len(learners), n_folds))
+    names = list(learners)
+    tasks = [(i, k) for i in range(len(names)) for k in range(n_folds)]
+
+    def run(i, k):
+        train, test = splits[k]
+        train_sites = train[label[train] == 1]
+        land, _ = _fold_landscape(test, label, background_rows)
+        test_all = np.concatenate((test, np.setdiff1d(land, test)))
+        s_test, s_train_sites = _fit_and_score(
+            learners[names[i]], seeds[i, k], X, label, weight, train, test_all, train_sites
+        )
+        return s_test, s_train_sites
+
+    background_rows = np.flatnonzero(label == 0)
+    if n_jobs == 1:
+        outputs = []
+        for i, k in tasks:
+            outputs.append(run(i, k))
+            _report(progress, f"{names[i]}: fold {k + 1}/{n_folds} done")
+    else:
+        outputs = []
+        gen = Parallel(n_jobs=n_jobs, return_as="generator")(delayed(run)(i, k) for i, k in tasks)
+        for (i, k), out in zip(tasks, gen):
+            outputs.append(out)
+            _report(progress, f"{names[i]}: fold {k + 1}/{n_folds} done")
+
+    sample_id = table["sample_id"].to_numpy()
+    fold_rows, oof_parts, zone_parts, curve_parts = [], [], [], []
+    for i, name in enumerate(names):
+        pooled_sites, pooled_sw, pooled_land = [], [], []
+        pooled_codes_site, pooled_codes_land = [], []
+        for k in range(n_folds):
+            train, test = splits[k]
+            s_all, s_train_sites = outputs[i * n_folds + k]
+            land, source = _fold_landscape(test, label, background_rows)
+            test_all = np.concatenate((test, np.setdiff1d(land, test)))
+            score_of = dict(zip(test_all.tolist(), range(test_all.size)))
+            site_rows = test[label[test] == 1]
+            s_site = s_all[[score_of[r] for r in site_rows.tolist()]]
+            s_land = s_all[[score_of[r] for r in land.tolist()]]
+            train_sites = train[label[train] == 1]
+            thresholds = zone_thresholds(s_train_sites, targets=zone_targets, site_weight=weight[train_sites])
+            metrics = evaluate_scores(
+                s_site, s_land, site_weight=weight[site_rows], thresholds=thresholds,
+                top_area_shares=top_area_shares,
+            )
+            fold_rows.append(_fold_row(name, k, train, site_rows, land, codes, source, metrics))
+            oof_parts.append(pd.DataFrame({
+                "sample_id": sample_id[test], "learner": name, "fold": k,
+                "score": s_all[: test.size],
+            }))
+            pooled_sites.append(s_site)
+            pooled_sw.append(weight[site_rows])
+            pooled_land.append(s_land)
+            pooled_codes_site.append(assign_zones(s_site, thresholds))
+            pooled_codes_land.append(assign_zones(s_land, thresholds))
+        s_site, sw, s_land = (np.concatenate(v) for v in (pooled_sites, pooled_sw, pooled_land))
+        metrics = evaluate_scores(s_site, s_land, site_weight=sw, zone_targets=zone_targets,
+                                  top_area_shares=top_area_shares)
+        all_test = np.concatenate([t for _, t in splits])
+        all_land = np.concatenate([_fold_landscape(t, label, background_rows)[0] for _, t in splits])
+        row = _fold_row(name, POOLED_FOLD, np.array([], dtype=np.int64), all_test[label[all_test] == 1],
+                        all_land, codes, _pooled_source(splits, label, background_rows), metrics)
+        row["n_train"] = np.nan
+        fold_rows.append(row)
+        thresholds = zone_thresholds(s_site, targets=zone_targets, site_weight=sw)
+        zt = zone_table(s_site, s_land, thresholds, site_weight=sw)
+        n_zones = len(zt)
+        site_codes_all = np.concatenate(pooled_codes_site)
+        land_codes_all = np.concatenate(pooled_codes_land)
+        # zone codes run n_zones (top) .. 1; table rows run from the top down
+        site_w = np.bincount(site_codes_all, weights=sw, minlength=n_zones + 1)[:0:-1]
+        land_w = np.bincount(land_codes_all, minlength=n_zones + 1)[:0:-1].astype(np.float64)
+        zt.insert(0, "learner", name)
+        zt["heldout_area_share"] = land_w / land_w.sum()
+        zt["heldout_site_share"] = site_w / sw.sum()
+        zone_parts.append(zt)
+        curve_parts.append(_curves(name, s_site, sw, s_land))
+
+    by_fold = pd.DataFrame(fold_rows)
+    metric_columns = [c for c in by_fold.columns if c not in ("learner", "fold", "landscape", *_COUNT_COLUMNS)]
+    summary = _summarise(by_fold, metric_columns)
+    return CrossValResult(
+        by_fold=by_fold,
+        summary=summary,
+        zones=pd.concat(zone_parts, ignore_index=True),
+        oof=pd.concat(oof_parts, ignore_index=True),
+        curves=pd.concat(curve_parts, ignore_index=True),
+    )
+
+
+def _pooled_source(splits, label, background_rows):
+    sources = {_fold_landscape(t, label, background_rows)[1] for _, t in splits}
+    return sources.pop() if len(sources) == 1 else "mixed"
+
+
+def _fold_row(name, fold, train, site_rows, land, codes, source, metrics):
+    row = {
+        "learner": name,
+        "fold": fold,
+        "n_train": int(train.size),
+        "n_test_site_cells": int(site_rows.size),
+        "n_test_sites": int(np.unique(codes[site_rows]).size),
+        "n_test_background": int(land.size),
+        "landscape": source,
+    }
+    row.update({k: v for k, v in metrics.items() if k not in _DROPPED_KEYS})
+    return row
+
+
+def _curves(name, s_site, sw, s_land):
+    from sklearn.metrics import roc_curve
+
+    cap = capture_curve(s_site, s_land, site_weight=sw)
+    y_true = np.concatenate((np.ones(s_site.size), np.zeros(s_land.size)))
+    fpr, tpr, _ = roc_curve(y_true, np.concatenate((s_site, s_land)),
+                            sample_weight=np.concatenate((sw, np.ones(s_land.size))))
+    return pd.concat([
+        pd.DataFrame({"learner": name, "curve": "capture",
+                      "x": cap["area_share"].to_numpy(), "y": cap["site_share"].to_numpy()}),
+        pd.DataFrame({"learner": name, "curve": "roc", "x": fpr, "y": tpr}),
+    ], ignore_index=True)
+
+
+# --------------------------------------------------------------------- output
+
+
+def _replace_into(path, write):
+    """Write through ``write(tmp_path)`` to a temporary name, then rename into place."""
+    tmp = path.with_name(f".{path.name}.tmp")
+    try:
+        write(tmp)
+        os.replace(tmp, path)
+    finally:
+        if tmp.exists():
+            tmp.unlink()
+
+
+def _write_csv(frame, path):
+    _replace_into(path, lambda p: frame.to_csv(p, index=False, float_format=_FLOAT_FORMAT, lineterminator="\n"))
+
+
+def _plot(curves, kind, path, xlabel, ylabel, title):
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    fig, ax = plt.subplots(figsize=(5.0, 5.0), dpi=100)
+    try:
+        ax.plot([0, 1], [0, 1], color="0.6", linestyle="--", linewidth=1, label="chance")
+        part = curves[curves["curve"] == kind]
+        for name, group in part.groupby("learner", sort=False):
+            ax.plot(group["x"].to_numpy(), group["y"].to_numpy(), linewidth=1.5, label=name)
+        ax.set_xlim(0, 1)
+        ax.set_ylim(0, 1)
+        ax.set_xlabel(xlabel)
+        ax.set_ylabel(ylabel)
+        ax.set_title(title)
+        ax.legend(loc="lower right", frameon=False)
+        fig.tight_layout()
+        _replace_into(path, lambda p: fig.savefig(p, format="png", metadata={"Software": None}))
+    finally:
+        plt.close(fig)
+
+
+def write_crossval(result, out_dir):
+    """Write the cross-validation tables and curve plots to ``out_dir``.
+
+    Parameters
+    ----------
+    result : CrossValResult
+        From :func:`cross_validate`.
+    out_dir : path-like
+        Folder; created if missing. Existing files of the same names are replaced.
+
+    Returns
+    -------
+    dict of str to pathlib.Path
+        File name to path: ``metrics_by_fold.csv``, ``metrics_summary.csv``,
+        ``zones.csv``, ``curves.csv``, ``capture_curves.png``, ``roc_curves.png``.
+
+    Notes
+    -----
+    Each file is written to a temporary name in ``out_dir`` and renamed into place
+    (``os.replace``), so a reader never sees half a file. Floats are written with
+    ``%.10g`` and the PNGs carry no version or time stamp, so the same result gives
+    byte-identical files.
+    """
+    if not isinstance(result, CrossValResult):
+        raise InputError(f"result is a {type(result).__name__}; expected the CrossValResult of cross_validate.")
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    files = {
+        "metrics_by_fold.csv": result.by_fold,
+        "metrics_summary.csv": result.summary,
+        "zones.csv": result.zones,
+        "curves.csv": result.curves,
+    }
+    paths = {}
+    for fname, frame in files.items():
+        paths[fname] = out / fname
+        _write_csv(frame, paths[fname])
+    paths["capture_curves.png"] = out / "capture_curves.png"
+    _plot(result.curves, "capture", paths["capture_curves.png"], "share of study area", "share of held-out sites",
+          "Sites captured against area (held-out, pooled)")
+    paths["roc_curves.png"] = out / "roc_curves.png"
+    _plot(result.curves, "roc", paths["roc_curves.png"], "false positive rate (share of background)",
+          "true positive rate (share of held-out sites)", "ROC of held-out sites against background")
+    return paths
