@@ -34,6 +34,10 @@ MIN_ACCEPT_RATE = 0.005
 #: Above this share of the acceptable cells, sample from an explicit list too.
 MAX_SHARE_FOR_REJECTION = 0.5
 MAX_BATCH = 2_000_000
+#: Survey proposals use blocks of at least this many cells a side, and at most this
+#: many blocks over the grid (so the block table stays small).
+BLOCK_MIN = 16
+MAX_BLOCKS = 1_000_000
 
 
 def balance_weights(presence_weight_total: float, n_background: int) -> float:
@@ -122,20 +126,26 @@ def sample_background(grid: GridSpec, *, n: int | None = None, fraction: float |
     -----
     Sampling is exact and uniform without replacement over the acceptable cells
     (valid, not excluded, and surveyed in "inside" mode). By default it works by
-    rejection: flat cell indices are drawn uniformly with replacement in batches
-    (over the survey's bounding window when there is a survey), candidates are
+    rejection: candidate cells are proposed with replacement in batches,
     tested (mask lookup, point-in-polygon for the survey, a k-d tree or
     polygon-distance query for the exclusion) and the first occurrence of each
     accepted cell is kept until ``n`` are found. The kept sequence is then a
-    uniform draw without replacement, and no array of all cell indices is built,
-    so a 10 000 x 10 000 grid needs only its boolean mask. When the expected
-    acceptance rate is below 0.5 % or ``n`` is more than half the acceptable
-    cells, the acceptable cells are listed explicitly and drawn with
-    ``Generator.choice``. In "weighted" mode a candidate is accepted with
-    probability effort / (an upper bound of the cell effort), giving successive
-    sampling proportional to effort, i.e. probability-proportional-to-size
-    sampling without replacement. A survey cell is one whose centre lies
-    strictly inside a survey polygon (shapely's point-in-polygon).
+    draw without replacement from the acceptance distribution, and no array of
+    all cell indices is built, so a 10 000 x 10 000 grid needs only its boolean
+    mask. Without a survey, proposals are uniform over the grid. With one, the
+    grid is cut into square blocks; a block met by the bounding box of a survey
+    polygon is proposed with probability proportional to an upper bound of the
+    effort in it (the summed effort of the polygons whose box meets it; 1 in
+    "inside" mode), a cell uniformly within it, and the cell is accepted with
+    probability effort / bound. Each cell is thus proposed-and-accepted with
+    probability proportional to its effort ("weighted": successive sampling
+    proportional to effort) or uniformly over surveyed cells ("inside"). When
+    the expected acceptance rate is below 0.5 % or ``n`` is more than half the
+    acceptable cells, the acceptable cells are listed explicitly and drawn with
+    ``Generator.choice`` (with ``p`` proportional to effort in "weighted"
+    mode). A survey cell is one whose centre lies strictly inside a survey
+    polygon (shapely's point-in-polygon); the effort of a cell is the sum over
+    the polygons containing it.
 
     Background here represents what was available to be found where people
     looked (presence-background view, METHODS.md §7); the exclusion distance
@@ -143,8 +153,7 @@ def sample_background(grid: GridSpec, *, n: int | None = None, fraction: float |
 
     References
     ----------
-    Phillips, S. J., Dudík, M., Elith, J., Graham, C. H., Lehmann, A., Leathwick,
-    J. & Ferrier, S. (2009). Sample selection bias and presence-only distribution
+    Phillips, S. J. et al. (2009). Sample selection bias and presence-only distribution
     models: implications for background and pseudo-absence data. Ecological
     Applications 19(1), 181-197. doi:10.1890/07-2153.1
     """
@@ -168,18 +177,19 @@ def sample_background(grid: GridSpec, *, n: int | None = None, fraction: float |
     excluder = _Excluder.build(exclude_sites, grid, exclusion_m)
     surv = _Survey.build(survey, grid, survey_mode, effort_field) if survey is not None else None
 
-    r0, c0, h, w = surv.window if surv is not None else (0, 0, grid.height, grid.width)
     p_valid = 1.0 if n_valid is None else n_valid / grid.n_cells
-    p_est = p_valid * (surv.accept_estimate if surv is not None else 1.0)
-    n_acceptable_est = p_est * h * w
+    if surv is None:
+        p_est, n_acceptable_est = p_valid, p_valid * grid.n_cells
+    else:
+        p_est = p_valid * surv.accept_estimate
+        n_acceptable_est = p_valid * surv.n_cells_estimate
     if p_est >= MIN_ACCEPT_RATE and n <= MAX_SHARE_FOR_REJECTION * n_acceptable_est:
-        chosen, n_draws = _draw_by_rejection(rng, n, (r0, c0, h, w), grid, lookup, surv,
-                                             excluder, p_est)
+        chosen, n_draws = _draw_by_rejection(rng, n, grid, lookup, surv, excluder, p_est)
         method = "rejection"
     else:
         chosen, n_draws = None, 0
     if chosen is None:
-        chosen = _draw_by_enumeration(rng, n, grid, lookup, surv, excluder)
+        chosen = _draw_by_enumeration(rng, n, grid, lookup, surv, excluder, n_valid)
         method = "enumeration"
 
     chosen = np.sort(chosen)
@@ -211,25 +221,34 @@ def _resolve_n(n, fraction, n_valid):
     return n
 
 
-def _accept(flat, u, grid, lookup, surv, excluder):
-    """Boolean acceptance of candidate flat indices (``u`` uniform draws for effort)."""
-    rows, cols = np.divmod(flat, grid.width)
-    ok = np.ones(flat.size, dtype=bool) if lookup is None else lookup(rows, cols)
+def _accept(flat, u, bound, grid, lookup, surv, excluder):
+    """Boolean acceptance of candidate flat indices.
+
+    ``u`` are uniform draws and ``bound`` the proposal's effort bound per candidate
+    ("weighted" mode only): a candidate is kept with probability effort / bound.
+    """
+    ok = flat >= 0
+    rows, cols = np.divmod(np.where(ok, flat, 0), grid.width)
+    if lookup is not None:
+        idx = np.flatnonzero(ok)
+        ok[idx] = lookup(rows[idx], cols[idx])
     if surv is not None:
         idx = np.flatnonzero(ok)
-        x, y = grid.xy(rows[idx], cols[idx])
-        effort = surv.effort_at(x, y)
-        ok[idx] = effort > 0 if u is None else u[idx] * surv.max_effort < effort
+        effort = surv.effort_at(*grid.xy(rows[idx], cols[idx]))
+        ok[idx] = effort > 0 if u is None else u[idx] * bound[idx] < effort
     if excluder is not None:
         idx = np.flatnonzero(ok)
-        x, y = grid.xy(rows[idx], cols[idx])
-        ok[idx] = ~excluder.excluded(x, y)
+        ok[idx] = ~excluder.excluded(*grid.xy(rows[idx], cols[idx]))
     return ok
 
 
-def _draw_by_rejection(rng, n, window, grid, lookup, surv, excluder, p_est):
-    """Uniform draws with replacement, first occurrence of accepted cells kept."""
-    r0, c0, h, w = window
+def _draw_by_rejection(rng, n, grid, lookup, surv, excluder, p_est):
+    """Proposals with replacement, first occurrence of each accepted cell kept.
+
+    Without a survey the proposal is uniform over the grid; with one it is
+    :meth:`_Survey.propose`, whose density times the acceptance probability is
+    constant ("inside") or proportional to effort ("weighted") over the cells.
+    """
     weighted = surv is not None and surv.mode == "weighted"
     kept = []
     kept_sorted = np.zeros(0, dtype=np.int64)
@@ -239,10 +258,12 @@ def _draw_by_rejection(rng, n, window, grid, lookup, surv, excluder, p_est):
         if n_draws >= 200_000 and rate < MIN_ACCEPT_RATE:
             return None, n_draws
         batch = int(min(MAX_BATCH, max(1000, 1.2 * (n - n_kept) / max(rate, MIN_ACCEPT_RATE))))
-        local = rng.integers(0, h * w, size=batch, dtype=np.int64)
+        if surv is None:
+            flat, bound = rng.integers(0, grid.n_cells, size=batch, dtype=np.int64), None
+        else:
+            flat, bound = surv.propose(rng, batch, grid)
         u = rng.random(batch) if weighted else None
-        flat = (r0 + local // w) * grid.width + (c0 + local % w)
-        ok = _accept(flat, u, grid, lookup, surv, excluder)
+        ok = _accept(flat, u, bound, grid, lookup, surv, excluder)
         n_draws += batch
         n_accepted += int(ok.sum())
         cand = flat[ok]
@@ -259,9 +280,14 @@ def _draw_by_rejection(rng, n, window, grid, lookup, surv, excluder, p_est):
     return np.concatenate(kept), n_draws
 
 
-def _draw_by_enumeration(rng, n, grid, lookup, surv, excluder):
+def _draw_by_enumeration(rng, n, grid, lookup, surv, excluder, n_valid):
     """List every acceptable cell and draw ``n`` of them without replacement."""
-    if surv is not None:
+    if surv is not None and n_valid is not None and n_valid < surv.n_cells_estimate:
+        # Fewer valid than surveyed cells: list the valid ones, then test the survey.
+        flat = _valid_flat_indices(grid, lookup)
+        effort = surv.effort_at(*grid.xy(*np.divmod(flat, grid.width)))
+        ok = effort > 0
+    elif surv is not None:
         flat, effort = surv.enumerate_cells(grid)
         rows, cols = np.divmod(flat, grid.width)
         ok = np.ones(flat.size, dtype=bool) if lookup is None else lookup(rows, cols)
@@ -364,14 +390,60 @@ class _Excluder:
 class _Survey:
     """Survey-coverage polygons in the grid CRS with effort per polygon."""
 
-    def __init__(self, polygons, effort, mode, window, accept_estimate, max_effort):
+    def __init__(self, polygons, effort, mode, grid):
         self.polygons = polygons
         self.effort = effort
         self.mode = mode
-        self.window = window
-        self.accept_estimate = accept_estimate
-        self.max_effort = max_effort
-        self.tree = shapely.STRtree(polygons)
+        self.bounds = shapely.bounds(polygons)
+        shapely.prepare(polygons)
+        self._build_blocks(grid)
+
+    def _build_blocks(self, grid):
+        """Blocks of ``block`` x ``block`` cells met by a polygon's bounding box.
+
+        ``block_bound`` is, per such block, the summed effort of all polygons whose
+        bounding box meets it: an upper bound of the effort of any cell in the block.
+        """
+        b = max(BLOCK_MIN, int(np.ceil(np.sqrt(grid.n_cells / MAX_BLOCKS))))
+        nbr, nbc = -(-grid.height // b), -(-grid.width // b)
+        t = grid.transform
+        c_lo = np.clip(np.floor((self.bounds[:, 0] - t.c) / t.a), 0, grid.width - 1) // b
+        c_hi = np.clip(np.floor((self.bounds[:, 2] - t.c) / t.a), 0, grid.width - 1) // b
+        r_lo = np.clip(np.floor((self.bounds[:, 3] - t.f) / t.e), 0, grid.height - 1) // b
+        r_hi = np.clip(np.floor((self.bounds[:, 1] - t.f) / t.e), 0, grid.height - 1) // b
+        diff = np.zeros((nbr + 1, nbc + 1))
+        e = self.effort if self.mode == "weighted" else np.ones(len(self.effort))
+        r_lo, r_hi, c_lo, c_hi = (a.astype(np.int64) for a in (r_lo, r_hi, c_lo, c_hi))
+        np.add.at(diff, (r_lo, c_lo), e)
+        np.add.at(diff, (r_lo, c_hi + 1), -e)
+        np.add.at(diff, (r_hi + 1, c_lo), -e)
+        np.add.at(diff, (r_hi + 1, c_hi + 1), e)
+        bound = np.cumsum(np.cumsum(diff, axis=0), axis=1)[:nbr, :nbc]
+        if self.mode == "inside":
+            bound = (bound > 0.5).astype(np.float64)
+        self.block = b
+        self.block_cols = nbc
+        self.blocks = np.flatnonzero(bound > 0)
+        self.block_bound = bound.ravel()[self.blocks]
+        cum = np.cumsum(self.block_bound)
+        self._block_cdf = cum / cum[-1]
+        # Expected acceptance of a proposal: mean effort over the proposal mass.
+        area = shapely.area(self.polygons) / (grid.res[0] * grid.res[1])
+        self.n_cells_estimate = float(area.sum())
+        mass = float((self.block_bound * b * b).sum())
+        self.accept_estimate = min(1.0, float((area * e).sum()) / mass)
+
+    def propose(self, rng, size, grid):
+        """Candidate cells: a block with probability proportional to its bound, then a
+        uniform cell in it. Returns flat indices (-1 beyond the grid edge) and bounds."""
+        k = np.searchsorted(self._block_cdf, rng.random(size), side="right")
+        k = np.minimum(k, self.blocks.size - 1)
+        local = rng.integers(0, self.block * self.block, size=size, dtype=np.int64)
+        br, bc = np.divmod(self.blocks[k], self.block_cols)
+        rows = br * self.block + local // self.block
+        cols = bc * self.block + local % self.block
+        flat = np.where((rows < grid.height) & (cols < grid.width), rows * grid.width + cols, -1)
+        return flat, self.block_bound[k]
 
     @classmethod
     def build(cls, survey, grid, mode, effort_field):
@@ -425,26 +497,32 @@ class _Survey:
                 + ("" if mode == "inside" else " with an effort > 0")
                 + "; check the survey layer and its CRS"
             )
-        polys, effort, clipped = polys[overlap], effort[overlap], clipped[overlap]
-        window = _bounds_window(shapely.total_bounds(clipped), grid)
-        tree = shapely.STRtree(polys)
-        if mode == "weighted":
-            # Upper bound of the summed effort at any point: a polygon plus all it touches.
-            pairs = tree.query(polys, predicate="intersects")
-            max_effort = float(np.bincount(pairs[0], weights=effort[pairs[1]],
-                                           minlength=len(polys)).max())
-            covered = float((shapely.area(clipped) * effort).sum()) / max_effort
-        else:
-            max_effort = 1.0
-            covered = float(shapely.area(clipped).sum())
-        window_area = window[2] * window[3] * grid.res[0] * grid.res[1]
-        accept = min(1.0, covered / window_area)
-        return cls(polys, effort, mode, window, accept, max_effort)
+        polys, effort = polys[overlap], effort[overlap]
+        if mode == "inside":
+            effort = np.ones(len(polys))  # effort only matters for "weighted"
+        return cls(polys, effort, mode, grid)
 
     def effort_at(self, x, y):
-        """Summed effort of the polygons strictly containing each point (0 outside)."""
-        pairs = self.tree.query(shapely.points(x, y), predicate="within")
-        return np.bincount(pairs[0], weights=self.effort[pairs[1]], minlength=np.size(x))
+        """Summed effort of the polygons strictly containing each point (0 outside).
+
+        Points are sorted by x once; each polygon tests only the points inside its
+        bounding box, with ``contains_xy`` (no point geometries are created, which
+        would cost far more time and memory than the test itself).
+        """
+        x = np.asarray(x, dtype=np.float64)
+        y = np.asarray(y, dtype=np.float64)
+        out = np.zeros(x.size)
+        order = np.argsort(x, kind="stable")
+        xs = x[order]
+        lo = np.searchsorted(xs, self.bounds[:, 0], side="left")
+        hi = np.searchsorted(xs, self.bounds[:, 2], side="right")
+        for i in np.flatnonzero(hi > lo):
+            idx = order[lo[i] : hi[i]]
+            yi = y[idx]
+            idx = idx[(yi >= self.bounds[i, 1]) & (yi <= self.bounds[i, 3])]
+            inside = shapely.contains_xy(self.polygons[i], x[idx], y[idx])
+            out[idx[inside]] += self.effort[i]
+        return out
 
     def enumerate_cells(self, grid):
         """Flat indices of all surveyed cells and their summed effort."""

@@ -223,22 +223,99 @@ def test_survey_weighted_overlaps_add_up():
 
 def test_survey_weighted_enumeration_follows_effort():
     grid = make_grid(400, 400)
-    # Two tiny walked strips (40 cells each) on a 160 000-cell grid: enumeration path.
-    a = shapely.box(X0 + 100, Y0 - 120, X0 + 500, Y0 - 100)
-    b = shapely.box(X0 + 2000, Y0 - 3020, X0 + 2400, Y0 - 3000)
-    survey = gpd.GeoDataFrame({"effort": [1.0, 4.0]}, geometry=[a, b], crs=3857)
+    # Valid cells are two bands of 300 cells (0.375 % of the grid): the enumeration path.
+    mask = np.zeros(grid.shape, dtype=bool)
+    mask[50, 50:350] = mask[300, 50:350] = True
+    top = shapely.box(X0 - 5, Y0 - 2000, X0 + 4005, Y0 + 5)
+    bottom = shapely.box(X0 - 5, Y0 - 4005, X0 + 4005, Y0 - 2000)
+    survey = gpd.GeoDataFrame({"effort": [1.0, 4.0]}, geometry=[top, bottom], crs=3857)
     counts = 0
     n_rep, n = 150, 6
     for seed in range(n_rep):
-        bg = sample_background(grid, n=n, survey=survey, survey_mode="weighted",
+        bg = sample_background(grid, n=n, valid_mask=mask, survey=survey, survey_mode="weighted",
                                effort_field="effort", random_state=seed)
         assert bg.attrs["method"] == "enumeration"
-        assert shapely.contains_xy(shapely.union(a, b), bg["x"], bg["y"]).all()
-        counts += int((bg["row"] > 200).sum())
-    # Drawing 6 of 80 cells without replacement depletes the high-effort strip a little, so the
-    # expected share sits slightly below 4/5 (about 0.79, derived); 0.02 covers that shift.
+        assert mask[bg["row"], bg["col"]].all()
+        counts += int((bg["row"] == 300).sum())
+    # Effort 4 vs 1 over equal cell counts -> share 4/5. Drawing 6 of 600 cells without
+    # replacement moves the expected share by < 0.01 (derived), added to the binomial band.
     p, total = 0.8, n_rep * n
-    assert abs(counts / total - p) < N_SIGMA * np.sqrt(p * (1 - p) / total) + 0.02
+    assert abs(counts / total - p) < N_SIGMA * np.sqrt(p * (1 - p) / total) + 0.01
+
+
+def _patchy_survey(efforts):
+    """Three small walked patches in different 16-cell blocks of a 40 x 40 grid."""
+    patches = [
+        shapely.Polygon([(X0 + 12, Y0 - 13), (X0 + 61, Y0 - 18), (X0 + 33, Y0 - 52)]),
+        shapely.box(X0 + 171, Y0 - 229, X0 + 219, Y0 - 201),
+        shapely.box(X0 + 301, Y0 - 389, X0 + 339, Y0 - 361),
+    ]
+    return gpd.GeoDataFrame({"effort": efforts}, geometry=patches, crs=3857), patches
+
+
+@pytest.mark.parametrize("mode", ["inside", "weighted"])
+def test_survey_single_draw_probabilities(mode):
+    """One draw per seed: P(cell) is uniform over surveyed cells, or effort / total effort."""
+    grid = make_grid(40, 40)
+    efforts = [1.0, 2.0, 5.0]
+    survey, patches = _patchy_survey(efforts)
+    rows, cols = np.mgrid[0:40, 0:40]
+    x, y = centres(grid, rows.ravel(), cols.ravel())
+    patch = np.full(x.size, -1)
+    for k, g in enumerate(patches):  # reference: shapely containment of cell centres
+        patch[shapely.contains_xy(g, x, y)] = k
+    surveyed = patch >= 0
+    counts = np.zeros(x.size)
+    n_rep = 200
+    for seed in range(n_rep):
+        bg = sample_background(grid, n=1, survey=survey, survey_mode=mode, effort_field="effort",
+                               random_state=seed)
+        assert bg.attrs["method"] == "rejection"
+        counts[bg["row"].iloc[0] * 40 + bg["col"].iloc[0]] += 1
+    assert counts[~surveyed].sum() == 0
+    if mode == "inside":
+        # Every surveyed cell equally likely (about 6 expected per cell).
+        expected = np.full(int(surveyed.sum()), n_rep / surveyed.sum())
+        assert chisquare(counts[surveyed], expected).pvalue > ALPHA
+    else:
+        # Per patch: share = effort x cells / total (target-group weighting, exact for one draw).
+        n_cells = np.bincount(patch[surveyed], minlength=3)
+        per_patch = np.bincount(patch[surveyed], weights=counts[surveyed], minlength=3)
+        expected = n_rep * np.array(efforts) * n_cells / (np.array(efforts) * n_cells).sum()
+        assert chisquare(per_patch, expected).pvalue > ALPHA
+
+
+def test_survey_weighted_effort_varies_within_one_block():
+    """Efforts 1 and 9 inside one proposal block: only the acceptance step can tell them apart."""
+    grid = make_grid(16, 16)
+    left = shapely.box(X0 - 1, Y0 - 161, X0 + 80, Y0 + 1)
+    right = shapely.box(X0 + 80, Y0 - 161, X0 + 161, Y0 + 1)
+    survey = gpd.GeoDataFrame({"effort": [1.0, 9.0]}, geometry=[left, right], crs=3857)
+    n_rep = 150
+    right_hits = 0
+    for seed in range(n_rep):
+        bg = sample_background(grid, n=1, survey=survey, survey_mode="weighted",
+                               effort_field="effort", random_state=seed)
+        right_hits += int(bg["col"].iloc[0] >= 8)
+    p = 9.0 / 10.0  # equal cell counts, effort 9 : 1 (exact for a single draw)
+    assert abs(right_hits / n_rep - p) < N_SIGMA * np.sqrt(p * (1 - p) / n_rep)
+
+
+def test_survey_enumeration_exact_set():
+    grid = make_grid(40, 40)
+    survey, patches = _patchy_survey([1.0, 1.0, 1.0])
+    rows, cols = np.mgrid[0:40, 0:40]
+    rows, cols = rows.ravel(), cols.ravel()
+    x, y = centres(grid, rows, cols)
+    inside = np.zeros(x.size, dtype=bool)
+    for g in patches:
+        inside |= shapely.contains_xy(g, x, y)
+    n_in = int(inside.sum())
+    bg = sample_background(grid, n=n_in, survey=survey)
+    assert bg.attrs["method"] == "enumeration"
+    assert set(zip(bg["row"], bg["col"])) == set(zip(rows[inside].tolist(), cols[inside].tolist()))
+    with pytest.raises(InsufficientDataError, match=f"only {n_in} cells are valid and surveyed"):
+        sample_background(grid, n=n_in + 1, survey=survey)
 
 
 def test_survey_with_exclusion_and_mask():
