@@ -338,7 +338,8 @@ def cross_validate(
     Raises
     ------
     InputError
-        Unknown feature or fold column, bad labels, weights or learners.
+        Unknown feature or fold column, bad labels, weights, learners, zone targets
+        or area shares (all checked before any fit).
     InsufficientDataError
         A fold with no site cell among its test rows, or no site or background
         cell among its training rows (checked before any fit).
@@ -400,6 +401,8 @@ def cross_validate(
     learners = _check_learners(learners)
     if isinstance(random_state, bool) or not (random_state is None or isinstance(random_state, (int, np.integer))):
         raise InputError(f"random_state={random_state!r}; expected an integer seed (or None).")
+    # a dummy evaluation checks the zone targets and area shares before any fit
+    evaluate_scores([1.0], [0.0, 1.0], zone_targets=zone_targets, top_area_shares=top_area_shares)
     codes = _site_codes(table["site_id"].to_numpy(), label)
     X = table[features].reset_index(drop=True)
     splits = _make_splits(table, fold_column, splitter, X, label, codes)
@@ -407,6 +410,7 @@ def cross_validate(
     seeds = np.random.default_rng(random_state).integers(0, 2**31 - 1, size=(len(learners), n_folds))
     names = list(learners)
     tasks = [(i, k) for i in range(len(names)) for k in range(n_folds)]
+    background_rows = np.flatnonzero(label == 0)
 
     def run(i, k):
         train, test = splits[k]
@@ -418,7 +422,6 @@ def cross_validate(
         )
         return s_test, s_train_sites
 
-    background_rows = np.flatnonzero(label == 0)
     if n_jobs == 1:
         outputs = []
         for i, k in tasks:

@@ -5,6 +5,7 @@ preference surface on a synthetic autocorrelated landscape for the virtual-site
 checks, and the binomial distribution for the zone-capture tolerance.
 """
 
+import joblib
 import numpy as np
 import pandas as pd
 import pytest
@@ -114,6 +115,12 @@ def test_fold_auc_matches_sklearn(virtual, result):
     w = np.where(oof["label"] == 1, oof["weight"], 1.0)
     pooled = result.by_fold[(result.by_fold["learner"] == "logistic") & (result.by_fold["fold"] == "all")]
     assert pooled["auc"].item() == pytest.approx(roc_auc_score(oof["label"], oof["score"], sample_weight=w), rel=1e-9)
+    # both curves are sites against landscape: the area under each (trapezoids) is the
+    # pooled AUC (METHODS.md §5, capture curve area = ROC AUC); 1e-9 for round-off
+    curves = result.curves[result.curves["learner"] == "logistic"]
+    for kind in ("capture", "roc"):
+        c = curves[curves["curve"] == kind]
+        assert np.trapezoid(c["y"], c["x"]) == pytest.approx(pooled["auc"].item(), rel=1e-9)
 
 
 def test_oof_covers_every_sample_once(virtual, result):
@@ -175,10 +182,13 @@ def test_noise_learner_ranks_below_and_is_significantly_worse(result):
 
 
 def test_same_seed_gives_identical_results_and_files(virtual, tmp_path):
-    small = virtual.iloc[::2].reset_index(drop=True)
+    small = virtual.iloc[::3].reset_index(drop=True)
     kwargs = dict(features=FEATURES, learners=_learners(), random_state=7)
     a = cross_validate(small, **kwargs)
-    b = cross_validate(small, **kwargs, n_jobs=2)
+    # threads instead of worker processes keep the test fast; the parallel path and the
+    # seeds drawn before it are the same for any joblib backend
+    with joblib.parallel_backend("threading"):
+        b = cross_validate(small, **kwargs, n_jobs=2)
     pd.testing.assert_frame_equal(a.by_fold, b.by_fold)
     pd.testing.assert_frame_equal(a.summary, b.summary)
     pa = write_crossval(a, tmp_path / "a")
@@ -214,3 +224,52 @@ def test_fold_without_sites_is_refused_before_fitting(virtual):
 def test_unknown_feature_is_input_error(virtual):
     with pytest.raises(InputError, match="elevation"):
         cross_validate(virtual, features=["f1", "elevation"], learners=_learners())
+
+
+def test_buffered_leave_one_site_out_honours_buffer(virtual):
+    from mlsites.folds import BufferedLeaveOneSiteOut
+    from mlsites.learners import fit_learner
+
+    sites = virtual[virtual["label"] == 1].iloc[:12]
+    background = virtual[virtual["label"] == 0].iloc[:400]
+    table = pd.concat([sites, background], ignore_index=True)
+    site_id = np.where(table["label"] == 1, table["site_id"], None)
+    buffer = 150.0
+    splitter = BufferedLeaveOneSiteOut(table["x"], table["y"], site_id, buffer=buffer)
+    res = cross_validate(table, features=FEATURES, learners={"logistic": _learners()["logistic"]},
+                         splitter=splitter)
+    rows = res.by_fold[res.by_fold["fold"] != "all"]
+    assert len(rows) == 12
+    assert (rows["landscape"] == "all_background").all()
+    # brute-force reference for the first site (fold 0): train on every sample farther
+    # than the buffer (NumPy distances), score all background outside the test cell,
+    # AUC by scikit-learn.
+    xy = table[["x", "y"]].to_numpy()
+    dist = np.hypot(*(xy - xy[0]).T)
+    train = dist > buffer
+    assert rows["n_train"].iloc[0] == train.sum()
+    est = fit_learner(make_learner("logistic", random_state=0), table.loc[train, FEATURES],
+                      table.loc[train, "label"], sample_weight=table.loc[train, "weight"])
+    score = est.predict_proba(table[FEATURES])[:, 1]
+    land = (table["label"] == 0).to_numpy()
+    y = np.concatenate(([1], np.zeros(land.sum())))
+    expected = roc_auc_score(y, np.concatenate(([score[0]], score[land])))
+    # lbfgs logistic regression is deterministic; rtol 1e-7 for float64 round-off
+    assert rows["auc"].iloc[0] == pytest.approx(expected, rel=1e-7)
+    # the per-site fold column of buffered leave-one-out (-1 for background) must come with its splitter
+    table["fold"] = np.where(table["label"] == 1, np.arange(len(table)), -1)
+    with pytest.raises(InputError, match="BufferedLeaveOneSiteOut"):
+        cross_validate(table, features=FEATURES, learners={"logistic": _learners()["logistic"]})
+
+
+def test_bad_zone_targets_refused_before_fitting(virtual):
+    calls = []
+
+    def factory():
+        calls.append(1)
+        return make_learner("logistic")
+
+    with pytest.raises(InputError, match="increasing"):
+        cross_validate(virtual, features=FEATURES, learners={"logistic": factory},
+                       zone_targets={"high": 0.9, "medium": 0.7})
+    assert calls == []
