@@ -262,18 +262,24 @@ def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, l
 
 
 def _write_outputs(out_dir: Path, table, blocks, dropped, summary):
+    from mlsites.folds import write_folds
+
     out_dir.mkdir(parents=True, exist_ok=True)
     staging = Path(tempfile.mkdtemp(prefix=".samples-partial-", dir=out_dir))
     try:
         table.to_parquet(staging / "samples.parquet", index=False)
-        table[["sample_id", "fold"]].to_csv(staging / "folds.csv", index=False)
-        if blocks is not None:
-            blocks.to_file(staging / "blocks.gpkg", layer="blocks", driver="GPKG")
+        if (table["fold"] >= 0).all():
+            write_folds(staging, table["sample_id"], table["fold"], blocks, meta=summary["folds"])
+        else:
+            # Buffered leave-one-site-out: background is in no test fold (-1); the
+            # splitter, not this file, defines the training sets.
+            table[["sample_id", "fold"]].to_csv(staging / "folds.csv", index=False)
         dropped.to_csv(staging / "dropped_records.csv", index=False)
         (staging / "sampling.json").write_text(json.dumps(summary, indent=2, default=str))
+        for name in ("blocks.gpkg", "folds_meta.json"):
+            if (out_dir / name).exists() and not (staging / name).exists():
+                (out_dir / name).unlink()
         for p in staging.iterdir():
             os.replace(p, out_dir / p.name)
-        if blocks is None and (out_dir / "blocks.gpkg").exists():
-            (out_dir / "blocks.gpkg").unlink()
     finally:
         shutil.rmtree(staging, ignore_errors=True)
