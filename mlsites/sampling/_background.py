@@ -14,7 +14,13 @@ import shapely
 from pyproj import CRS as ProjCRS
 from scipy.spatial import cKDTree
 
-from mlsites.errors import CRSError, DataQualityWarning, InputError, InsufficientDataError
+from mlsites.errors import (
+    CRSError,
+    DataQualityWarning,
+    InputError,
+    InsufficientDataError,
+    VectorReadError,
+)
 from mlsites.grid import GridSpec
 from mlsites.sampling._extract import valid_lookup
 from mlsites.sampling._sites import (
@@ -34,6 +40,8 @@ MIN_ACCEPT_RATE = 0.005
 #: Above this share of the acceptable cells, sample from an explicit list too.
 MAX_SHARE_FOR_REJECTION = 0.5
 MAX_BATCH = 2_000_000
+#: Switch to enumeration when fewer than this share of accepted draws are new cells.
+MIN_NEW_SHARE = 0.1
 #: Survey proposals use blocks of at least this many cells a side, and at most this
 #: many blocks over the grid (so the block table stays small).
 BLOCK_MIN = 16
@@ -253,6 +261,7 @@ def _draw_by_rejection(rng, n, grid, lookup, surv, excluder, p_est):
     kept = []
     kept_sorted = np.zeros(0, dtype=np.int64)
     n_kept = n_draws = n_accepted = 0
+    recent_accepted = recent_new = 0
     while n_kept < n:
         rate = n_accepted / n_draws if n_draws else p_est
         if n_draws >= 200_000 and rate < MIN_ACCEPT_RATE:
@@ -273,6 +282,14 @@ def _draw_by_rejection(rng, n, grid, lookup, surv, excluder, p_est):
             pos = np.searchsorted(kept_sorted, cand)
             pos[pos == kept_sorted.size] = 0
             cand = cand[kept_sorted[pos] != cand]
+        recent_accepted += int(ok.sum())
+        recent_new += cand.size
+        if recent_accepted >= 1000:
+            if recent_new < MIN_NEW_SHARE * recent_accepted:
+                # Mostly repeats: the acceptable set is not much larger than n (or the
+                # effort is concentrated); listing it is cheaper and always terminates.
+                return None, n_draws
+            recent_accepted = recent_new = 0
         cand = cand[: n - n_kept]
         kept.append(cand)
         n_kept += cand.size
@@ -551,12 +568,12 @@ def _read_survey(survey):
     if isinstance(survey, (str, Path)):
         path = Path(survey)
         if not path.exists():
-            raise InputError(f"{path}: survey layer not found; check the path")
+            raise VectorReadError(f"{path}: survey layer not found; check the path")
         try:
             return gpd.read_file(path), path.name
         except Exception as exc:
             first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-            raise InputError(f"{path}: not a vector layer GDAL can read ({first})") from None
+            raise VectorReadError(f"{path}: not a vector layer GDAL can read ({first})") from None
     raise InputError(f"survey: expected a GeoDataFrame or a path, got {type(survey).__name__}")
 
 

@@ -10,7 +10,7 @@ import shapely
 from affine import Affine
 from rasterio.features import rasterize
 
-from mlsites.errors import DataQualityWarning, InsufficientDataError
+from mlsites.errors import DataQualityWarning, InputError, InsufficientDataError
 from mlsites.grid import GridSpec
 from mlsites.sampling._extract import valid_lookup
 from mlsites.sampling._sites import metres_to_crs_units, resolve_rng, sites_in_grid_crs
@@ -70,14 +70,20 @@ def presence_cells(sites, grid: GridSpec, *, buffer_m: float = 0.0, valid_mask=N
     or smaller than a cell still gives the containing cell. A polygon covers the
     cells whose centre lies inside it (rasterised on the polygon's bounding
     window only, GDAL's centre rule); a polygon that holds no cell centre gets
-    the cell of its representative point. Cells outside the grid and on nodata
-    are removed before weighting, so each site's weights are ``1 / n_cells``
-    and sum to one (METHODS.md §7, site footprints and weights): a site of 12
+    the cell of its representative point; parts of a polygon beyond the grid
+    edge give no cells (and are not counted as removed). Cells of point buffers
+    outside the grid and cells on nodata are removed and counted before
+    weighting, so each site's weights are ``1 / n_cells`` and sum to one
+    (METHODS.md §7, site footprints and weights): a site of 12
     cells gives 12 rows of weight 1/12 and one of a single cell one row of
     weight 1, so large sites do not dominate. Sites that overlap keep one row
     each for a shared cell, each with its own site's weight.
     """
     gdf = sites_in_grid_crs(sites, grid)
+    if "site_id" not in gdf.columns:
+        cols = [str(c) for c in gdf.columns if c != gdf.geometry.name]
+        raise InputError(f"sites: no 'site_id' column (columns: {', '.join(cols) or 'none'}); "
+                         "read the sites with read_sites or name the id column site_id")
     radius = metres_to_crs_units(grid, buffer_m, "buffer_m")
     lookup = valid_lookup(valid_mask, grid)
     geoms = gdf.geometry.to_numpy()

@@ -10,7 +10,7 @@ import shapely
 from affine import Affine
 from rasterio.crs import CRS
 
-from mlsites.errors import CRSError, DataQualityWarning, InsufficientDataError
+from mlsites.errors import CRSError, DataQualityWarning, InputError, InsufficientDataError
 from mlsites.grid import GridSpec
 from mlsites.sampling import presence_cells, read_sites
 
@@ -236,4 +236,11 @@ def test_sites_without_crs_refused():
     grid = make_grid()
     gdf = gpd.GeoDataFrame({"site_id": ["a"]}, geometry=[shapely.Point(X0 + 5, Y0 - 5)])
     with pytest.raises(CRSError, match="has no CRS"):
+        presence_cells(gdf, grid)
+
+
+def test_sites_without_id_column_refused():
+    grid = make_grid()
+    gdf = gpd.GeoDataFrame({"name": ["a"]}, geometry=[shapely.Point(X0 + 5, Y0 - 5)], crs=3857)
+    with pytest.raises(InputError, match="no 'site_id' column"):
         presence_cells(gdf, grid)
