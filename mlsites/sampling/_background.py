@@ -428,16 +428,15 @@ class _Survey:
         c_hi = np.clip(np.floor((self.bounds[:, 2] - t.c) / t.a), 0, grid.width - 1) // b
         r_lo = np.clip(np.floor((self.bounds[:, 3] - t.f) / t.e), 0, grid.height - 1) // b
         r_hi = np.clip(np.floor((self.bounds[:, 1] - t.f) / t.e), 0, grid.height - 1) // b
-        diff = np.zeros((nbr + 1, nbc + 1))
         e = self.effort if self.mode == "weighted" else np.ones(len(self.effort))
         r_lo, r_hi, c_lo, c_hi = (a.astype(np.int64) for a in (r_lo, r_hi, c_lo, c_hi))
-        np.add.at(diff, (r_lo, c_lo), e)
-        np.add.at(diff, (r_lo, c_hi + 1), -e)
-        np.add.at(diff, (r_hi + 1, c_lo), -e)
-        np.add.at(diff, (r_hi + 1, c_hi + 1), e)
-        bound = np.cumsum(np.cumsum(diff, axis=0), axis=1)[:nbr, :nbc]
+        # Plain additions of non-negative efforts (no cumulative differences), so the
+        # bound never falls below a cell's summed effort through cancellation.
+        bound = np.zeros((nbr, nbc))
+        for i in range(len(e)):
+            bound[r_lo[i] : r_hi[i] + 1, c_lo[i] : c_hi[i] + 1] += e[i]
         if self.mode == "inside":
-            bound = (bound > 0.5).astype(np.float64)
+            bound = (bound > 0).astype(np.float64)
         self.block = b
         self.block_cols = nbc
         self.blocks = np.flatnonzero(bound > 0)
@@ -445,7 +444,8 @@ class _Survey:
         cum = np.cumsum(self.block_bound)
         self._block_cdf = cum / cum[-1]
         # Expected acceptance of a proposal: mean effort over the proposal mass.
-        area = shapely.area(self.polygons) / (grid.res[0] * grid.res[1])
+        inside_grid = shapely.intersection(self.polygons, shapely.box(*grid.bounds))
+        area = shapely.area(inside_grid) / (grid.res[0] * grid.res[1])
         self.n_cells_estimate = float(area.sum())
         mass = float((self.block_bound * b * b).sum())
         self.accept_estimate = min(1.0, float((area * e).sum()) / mass)

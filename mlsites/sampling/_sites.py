@@ -254,10 +254,7 @@ def read_sites(path, grid: GridSpec, *, id_field: str = "site_id", x_field: str 
             drop(~ok, "on nodata cell")
 
     _drop_duplicates(ids, reasons, drop, "duplicate id")
-    location_keys = np.array(
-        [shapely.to_wkb(shapely.normalize(g)) if g is not None else None for g in geoms],
-        dtype=object,
-    )
+    location_keys = shapely.to_wkb(shapely.normalize(geoms))
     _drop_duplicates(location_keys, reasons, drop, "duplicate location")
 
     keep = pd.isna(reasons)

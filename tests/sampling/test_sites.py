@@ -284,3 +284,30 @@ def test_records_type(grid):
     assert isinstance(rec, SiteRecords)
     # Whole-number float ids (as some formats store them) become plain integer text.
     assert list(rec.sites["site_id"]) == ["1", "2"]
+
+
+def test_invalid_polygon_repaired_with_warning(grid):
+    bowtie = shapely.Polygon([(X0 + 10, Y0 - 10), (X0 + 90, Y0 - 90), (X0 + 90, Y0 - 10),
+                              (X0 + 10, Y0 - 90)])
+    assert not bowtie.is_valid
+    gdf = gpd.GeoDataFrame({"site_id": ["bow"]}, geometry=[bowtie], crs=3857)
+    with pytest.warns(DataQualityWarning, match="repaired 1 invalid polygon"):
+        rec = read_sites(gdf, grid)
+    g = rec.sites.geometry.iloc[0]
+    assert g.is_valid and g.geom_type in ("Polygon", "MultiPolygon")
+    # The bow tie is two triangles of base 80 m and height 40 m: 2 x 1600 m2 (geometry).
+    assert g.area == pytest.approx(80 * 80 / 2, rel=1e-12)
+
+
+def test_valid_mask_as_raster_path(grid, tmp_path):
+    from mlsites.grid import write_array
+
+    x, y = _inside_points(30, seed=6)
+    rows, cols = grid.rowcol(x, y)
+    data = np.ones(grid.shape, dtype=np.float32)
+    data[rows[:5], cols[:5]] = np.nan  # the first five sites sit on nodata
+    path = write_array(tmp_path / "area.tif", data, grid)
+    gdf = gpd.GeoDataFrame({"site_id": range(30)}, geometry=shapely.points(x, y), crs=3857)
+    rec = _quiet_read(gdf, grid, valid_mask=path)
+    assert list(rec.dropped["source_row"]) == [0, 1, 2, 3, 4]
+    assert set(rec.dropped["reason"]) == {"on nodata cell"}
