@@ -488,8 +488,8 @@ class _Survey:
             if bad.any():
                 i = int(np.flatnonzero(bad)[0])
                 raise InputError(f"{source}: effort field {effort_field!r} has {int(bad.sum())} "
-                                 f"missing, non-numeric or negative value(s) (first at feature {i}: "
-                                 f"{raw[i]!r}); expected numbers >= 0")
+                                 "missing, non-numeric or negative value(s) (first at feature "
+                                 f"{i}: {raw[i]!r}); expected numbers >= 0")
             effort = effort[~empty]
         else:
             effort = np.ones(int((~empty).sum()))

@@ -81,7 +81,8 @@ def extract_values(layers: Mapping, rows, cols, grid: GridSpec, *, kinds=None,
         kinds = {name: kinds or "continuous" for name in layers}
     unknown = set(kinds) - set(layers)
     if unknown:
-        raise InputError(f"kinds names unknown layer(s) {sorted(unknown)}; layers are {list(layers)}")
+        raise InputError(f"kinds names unknown layer(s) {sorted(unknown)}; "
+                         f"layers are {list(layers)}")
 
     groups = _block_groups(rows, cols, grid, block_size)
     out = {}

@@ -302,7 +302,8 @@ def _read_table(path, *, id_field, x_field, y_field, crs, layer):
     if not path.exists():
         raise VectorReadError(f"{path}: file not found; check the path of the site layer")
     if path.suffix.lower() in CSV_SUFFIXES:
-        return source, *_read_csv(path, id_field=id_field, x_field=x_field, y_field=y_field, crs=crs)
+        return source, *_read_csv(path, id_field=id_field, x_field=x_field, y_field=y_field,
+                                  crs=crs)
     import pyogrio
 
     try:
@@ -516,7 +517,8 @@ def sites_in_grid_crs(sites, grid: GridSpec, what: str = "sites") -> gpd.GeoData
     if isinstance(sites, SiteRecords):
         return sites.sites
     if not isinstance(sites, gpd.GeoDataFrame):
-        raise InputError(f"{what}: expected SiteRecords or a GeoDataFrame, got {type(sites).__name__}")
+        raise InputError(f"{what}: expected SiteRecords or a GeoDataFrame, "
+                         f"got {type(sites).__name__}")
     if sites.crs is None:
         raise CRSError(f"{what}: the GeoDataFrame has no CRS; set it (gdf.set_crs) or read the "
                        "sites with read_sites")
