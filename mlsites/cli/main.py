@@ -13,6 +13,8 @@ from mlsites import __version__
 _COMMANDS = {
     "terrain": ("mlsites.cli.terrain", "terrain", "Derive terrain layers from a DEM."),
     "demo": ("mlsites.cli.demo", "demo", "Build the fictional demo landscape and run what exists."),
+    "run": ("mlsites.cli.run", "run", "Run an experiment file end to end."),
+    "sample": ("mlsites.cli.sample", "sample", "Build the sample table and folds of an experiment."),
 }
 
 
@@ -39,10 +41,19 @@ def handle_errors(func):
 
     @functools.wraps(func)
     def wrapper(*args, **kwargs):
+        import warnings
+
         from mlsites.errors import MlsitesError
 
+        def show(message, category, *rest, **kw):
+            # Warnings about the data (dropped records, partial neighbourhoods) are
+            # part of the report: one plain line each, no source location.
+            click.echo(f"mlsites: warning: {message}", err=True)
+
         try:
-            return func(*args, **kwargs)
+            with warnings.catch_warnings():
+                warnings.showwarning = show
+                return func(*args, **kwargs)
         except MlsitesError as exc:
             ctx = click.get_current_context(silent=True)
             if ctx is not None and (ctx.find_root().obj or {}).get("debug"):

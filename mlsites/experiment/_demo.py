@@ -1,0 +1,90 @@
+"""The fictional demo study: a landscape, virtual site records and survey strips.
+
+Everything is invented and deterministic from a seed: the landscape comes from
+:func:`mlsites.synthetic.make_landscape`, the sites from
+:func:`mlsites.synthetic._virtual_sites.make_virtual_sites` with a preference for
+gentle slopes near streams, and the survey strips are the areas that were walked.
+``demo_data/make_demo.py`` and ``mlsites demo`` call :func:`write_demo_data`.
+"""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+import numpy as np
+
+from mlsites.errors import OutputExistsError
+
+__all__ = ["DEMO_FILES", "write_demo_data"]
+
+#: Files written by :func:`write_demo_data`.
+DEMO_FILES = ("dem.tif", "soil.tif", "streams.gpkg", "sites.gpkg", "survey.gpkg")
+
+
+def _write_vector(frame, path: Path, layer: str):
+    tmp = path.with_name(f".{path.stem}.partial{path.suffix}")
+    tmp.unlink(missing_ok=True)
+    try:
+        frame.to_file(tmp, layer=layer, driver="GPKG")
+        os.replace(tmp, path)
+    finally:
+        tmp.unlink(missing_ok=True)
+
+
+def write_demo_data(directory, *, shape=(600, 600), cellsize: float = 10.0, n_sites: int = 260,
+                    random_state: int = 7, overwrite: bool = False) -> dict:
+    """Write the fictional demo study into ``directory``.
+
+    Parameters
+    ----------
+    directory : path-like
+        Created if missing.
+    shape : (int, int), default (600, 600)
+        Rows and columns of the landscape.
+    cellsize : float, default 10.0
+        Cell size in metres.
+    n_sites : int, default 260
+        Virtual sites placed before survey bias (roughly a third get recorded).
+    random_state : int, default 7
+        Seed of the landscape and the sites; the same seed gives the same files.
+    overwrite : bool, default False
+        Replace existing files; otherwise :class:`OutputExistsError`.
+
+    Returns
+    -------
+    dict of str to Path
+        ``dem``, ``soil``, ``streams``, ``sites``, ``survey``.
+
+    Notes
+    -----
+    The sites' preference surface uses slope, northness, TPI (100 m disc) and the
+    distance to the carved channels, computed here with the array functions of
+    :mod:`mlsites.terrain`; the models never see that surface, only the files.
+    """
+    from mlsites.synthetic import make_landscape
+    from mlsites.synthetic._virtual_sites import make_virtual_sites
+    from mlsites.terrain import distance_to_cells, northness, slope, tpi
+
+    directory = Path(directory)
+    paths = {Path(f).stem: directory / f for f in DEMO_FILES}
+    existing = [str(p) for p in paths.values() if p.exists()]
+    if existing and not overwrite:
+        raise OutputExistsError(f"{', '.join(existing)} already exist(s); use another folder or overwrite")
+    width_m = min(shape) * cellsize
+    land = make_landscape(shape, cellsize=cellsize, random_state=random_state,
+                          valley_width_m=min(1000.0, 0.3 * width_m), relief_m=min(300.0, 0.05 * width_m))
+    land.write(directory, overwrite=overwrite)
+    dem = land.dem.astype(np.float64)
+    layers = {
+        "slope": slope(dem, cellsize),
+        "northness": northness(dem, cellsize),
+        "tpi": tpi(dem, cellsize, radius=100.0),
+        "stream_distance": distance_to_cells(land.streams > 0, cellsize),
+    }
+    strip = max(10 * cellsize, 0.12 * width_m)
+    virtual = make_virtual_sites(layers, land.grid, n_sites=n_sites, strip_width_m=strip,
+                                 random_state=random_state)
+    _write_vector(virtual.sites, paths["sites"], "sites")
+    _write_vector(virtual.survey, paths["survey"], "survey")
+    return paths

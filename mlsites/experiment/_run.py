@@ -1,0 +1,560 @@
+"""Run a whole experiment: inputs, samples, spatial cross-validation, models, tables.
+
+:func:`run_experiment` is the body of ``mlsites run``. Every output is built in a
+staging folder beside its destination and renamed into place only when the run
+succeeded, so a failed run leaves nothing half-written and an existing run is
+never replaced unless asked for (``fresh``). Derived terrain layers and the sample
+table are cached under ``<runs_dir>/.cache`` by a hash of their inputs and
+settings, so a second run only redoes what changed.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import datetime as _dt
+import functools
+import hashlib
+import json
+import os
+import re
+import shutil
+import tempfile
+import time
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from mlsites import __version__
+from mlsites.errors import ConfigError, InsufficientDataError, OutputExistsError
+
+__all__ = ["RunResult", "run_experiment", "sample_experiment", "check_input_layers", "output_roots",
+           "samples_key"]
+
+#: An integer layer declared continuous with this many distinct codes or fewer (but
+#: more than two, where both kinds give the same model) is taken for a class map.
+MAX_CODES_CONTINUOUS = 32
+#: Cells read (per side, decimated) to inspect an input layer's values.
+_INSPECT_CELLS = 256
+_NAME_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
+#: Sections of the experiment that change the sample table.
+_SAMPLE_SECTIONS = ("study", "terrain", "sites", "sampling", "folds", "inputs", "distances")
+#: Sample weights are rounded to multiples of this (2**-30) so that every partial sum
+#: of them is exact: shares summed in different orders then agree to the last bit
+#: (a share of 1 stays 1), which keeps results independent of summation order.
+WEIGHT_QUANTUM = 2.0 ** -30
+#: Files copied from the sample folder to the top of the run folder.
+_SAMPLE_REPORTS = ("dropped_records.csv", "sampling.json")
+
+
+@dataclass(frozen=True)
+class RunResult:
+    """What :func:`run_experiment` produced.
+
+    Attributes
+    ----------
+    name : str
+        Run name (the experiment name unless another was given).
+    run_dir : Path
+        ``<runs_dir>/<name>``: manifest, tables, curves, log, samples.
+    models_dir : Path
+        ``<models_dir>/<name>``: ``<learner>.skops`` and ``<learner>.card.json``.
+    summary : pandas.DataFrame
+        The comparison table (``metrics_summary.csv``), best learner first.
+    manifest : dict
+        The content of ``manifest.json``.
+    """
+
+    name: str
+    run_dir: Path
+    models_dir: Path
+    summary: object
+    manifest: dict
+
+
+class _Log:
+    """Collects stage lines for ``run.log`` and passes them on to ``echo``."""
+
+    def __init__(self, echo=None):
+        self.lines: list[str] = []
+        self.echo = echo
+        self.stages: dict[str, float] = {}
+
+    def __call__(self, message: str):
+        for line in str(message).splitlines():
+            self.lines.append(line)
+            if self.echo is not None:
+                self.echo(line)
+
+    @contextlib.contextmanager
+    def stage(self, name: str):
+        t0 = time.perf_counter()
+        yield
+        seconds = time.perf_counter() - t0
+        self.stages[name] = round(seconds, 2)
+        self(f"{name}: done in {seconds:.1f} s")
+
+
+def _digest(obj) -> str:
+    return hashlib.sha256(json.dumps(obj, sort_keys=True, default=str).encode()).hexdigest()
+
+
+def input_files(exp) -> dict:
+    """Every input file an experiment reads: role -> absolute path."""
+    files = {"study.dem": exp["study"]["dem"], "sites.path": exp["sites"]["path"],
+             "terrain.stream_lines": exp["terrain"]["stream_lines"],
+             "sampling.survey_areas": exp["sampling"]["survey_areas"]}
+    files.update({f"inputs.{n}": spec["path"] for n, spec in exp["inputs"].items()})
+    files.update({f"distances.{n}": p for n, p in exp["distances"].items()})
+    return {k: str(v) for k, v in files.items() if v}
+
+
+def _file_hashes(exp) -> dict:
+    from mlsites.experiment._samples import file_digest
+
+    hashes = {}
+    for role, path in input_files(exp).items():
+        p = Path(path)
+        if p.is_dir():  # a vector "file" that is a folder (shapefile set and the like)
+            h = hashlib.sha256()
+            for q in sorted(p.rglob("*")):
+                if q.is_file():
+                    h.update(q.relative_to(p).as_posix().encode() + file_digest(q).encode())
+            hashes[role] = {"path": path, "sha256": h.hexdigest()}
+        else:
+            hashes[role] = {"path": path, "sha256": file_digest(p)}
+    return hashes
+
+
+def samples_key(exp, hashes=None) -> str:
+    """Hash of everything the sample table depends on (settings, file bytes, version)."""
+    hashes = _file_hashes(exp) if hashes is None else hashes
+    return _digest({"settings": {s: exp[s] for s in _SAMPLE_SECTIONS},
+                    "files": {k: v["sha256"] for k, v in hashes.items()}, "version": __version__,
+                    "weight_quantum": WEIGHT_QUANTUM})[:16]
+
+
+# ---------------------------------------------------------------- input checks
+
+
+def _crs_label(crs) -> str:
+    if crs is None:
+        return "no CRS"
+    epsg = crs.to_epsg()
+    return f"EPSG:{epsg}" if epsg else crs.to_string()[:60]
+
+
+def check_input_layers(exp, grid, log=None) -> dict:
+    """Check the ``[inputs]`` layers against the study grid and their declared kind.
+
+    Parameters
+    ----------
+    exp : Experiment
+    grid : GridSpec
+        The study grid (the DEM's).
+    log : callable, optional
+        Receives one line per layer that will be aligned onto the grid.
+
+    Returns
+    -------
+    dict of str to str
+        Layer name -> "on grid" or "aligned".
+
+    Raises
+    ------
+    ConfigError
+        A layer declared continuous looks categorical, or the reverse.
+
+    Notes
+    -----
+    A layer on another CRS, resolution or extent is aligned onto the study grid
+    while it is read (bilinear for continuous layers, nearest for categorical
+    ones); this is said in the log. The kind check reads the band decimated to at
+    most 256 x 256 cells: a layer declared continuous is taken for a class map
+    when its metadata names classes (``class_<code>`` tags) or when it is stored
+    as integers with 3 to 32 distinct codes (two codes behave the same either
+    way). A layer declared categorical must hold whole numbers.
+    """
+    from rasterio.enums import Resampling
+
+    from mlsites.grid import GridSpec, open_raster
+
+    log = log or (lambda m: None)
+    status = {}
+    for name, spec in exp["inputs"].items():
+        path, kind, band = spec["path"], spec["kind"], spec.get("band", 1)
+        with open_raster(path) as src:
+            own = GridSpec.__new__(GridSpec)
+            for attr, value in (("crs", src.crs), ("transform", src.transform), ("width", src.width),
+                                ("height", src.height)):
+                object.__setattr__(own, attr, value)
+            aligned = not (src.crs is not None and grid.same_as(own))
+            if aligned and src.crs is not None:
+                how = "nearest" if kind == "categorical" else "bilinear"
+                log(f"aligned {name} from {_crs_label(src.crs)}, {abs(src.res[0]):g} x {abs(src.res[1]):g} "
+                    f"cells onto the study grid ({how})")
+            status[name] = "aligned" if aligned else "on grid"
+            if not 1 <= band <= src.count:
+                continue  # reported with the file name when the layer is read
+            shape = (min(src.height, _INSPECT_CELLS), min(src.width, _INSPECT_CELLS))
+            values = src.read(band, out_shape=shape, resampling=Resampling.nearest, masked=True)
+            dtype = np.dtype(src.dtypes[band - 1])
+            tags = src.tags(band) | src.tags()
+        values = np.asarray(values.compressed(), dtype=np.float64)
+        values = values[np.isfinite(values)]
+        codes = np.unique(values)
+        class_tags = sorted(k for k in tags if k.startswith("class_"))
+        where = f"{exp.path}: [inputs.{name}]"
+        if kind == "continuous":
+            reason = None
+            if class_tags:
+                reason = f"its metadata names classes ({', '.join(class_tags[:3])}{', ...' if len(class_tags) > 3 else ''})"
+            elif np.issubdtype(dtype, np.integer) and 2 < codes.size <= MAX_CODES_CONTINUOUS:
+                reason = f"it holds {codes.size} distinct integer codes ({', '.join(f'{c:g}' for c in codes[:6])}{', ...' if codes.size > 6 else ''})"
+            if reason:
+                raise ConfigError(
+                    f"{where} kind = \"continuous\" but {Path(path).name} looks categorical: {reason}; "
+                    f"set kind = \"categorical\", or store measured values as floating point (for example "
+                    f"gdal_translate -ot Float32) if they really are continuous"
+                )
+        elif codes.size and not np.all(codes == np.round(codes)):
+            sample = codes[codes != np.round(codes)][:3]
+            raise ConfigError(
+                f"{where} kind = \"categorical\" but {Path(path).name} holds non-integer values "
+                f"({', '.join(f'{v:g}' for v in sample)}); class codes must be whole numbers: "
+                f"set kind = \"continuous\" or give the class raster"
+            )
+    return status
+
+
+# ---------------------------------------------------------------- samples
+
+
+def _cached_samples(exp, cache_dir: Path, *, fresh, quiet, log) -> tuple[Path, str, bool]:
+    """Folder of the experiment's sample files in the cache; built unless cached."""
+    from mlsites.experiment._samples import prepare_samples
+
+    hashes = _file_hashes(exp)
+    key = samples_key(exp, hashes)
+    folder = cache_dir / f"samples-{key}"
+    if (folder / "samples.parquet").exists() and not fresh:
+        log(f"sample table: cached in {folder.name}")
+        return folder, key, True
+    cache_dir.mkdir(parents=True, exist_ok=True)
+    staging = _staging_dir(cache_dir, f".samples-{key}.partial-")
+    try:
+        prepare_samples(exp, staging, cache_dir=cache_dir, fresh=fresh, quiet=quiet, log=log)
+        _round_weights(staging / "samples.parquet")
+        old = None
+        if folder.exists():
+            old = Path(tempfile.mkdtemp(prefix=f".samples-{key}.old-", dir=cache_dir))
+            os.replace(folder, old / "x")
+        os.replace(staging, folder)
+        if old is not None:
+            shutil.rmtree(old, ignore_errors=True)
+    finally:
+        shutil.rmtree(staging, ignore_errors=True)
+    return folder, key, False
+
+
+def _round_weights(parquet: Path):
+    import pandas as pd
+
+    table = pd.read_parquet(parquet)
+    table["weight"] = np.round(table["weight"].to_numpy() / WEIGHT_QUANTUM) * WEIGHT_QUANTUM
+    table.to_parquet(parquet, index=False)
+
+
+def _load_sample_set(folder: Path):
+    import pandas as pd
+
+    from mlsites.experiment._samples import SampleSet
+
+    summary = json.loads((folder / "sampling.json").read_text())
+    table = pd.read_parquet(folder / "samples.parquet")
+    return SampleSet(table=table, features=list(summary["features"]), categorical=list(summary["categorical"]),
+                     folder=folder, summary=summary)
+
+
+def output_roots(exp) -> tuple[Path, Path]:
+    """``runs_dir`` and ``models_dir`` of an experiment, absolute.
+
+    Paths written in the file are already relative to it; the defaults ("runs",
+    "models") are taken relative to the experiment file's folder as well, so a
+    run's place does not depend on the working directory.
+    """
+    out = exp["outputs"]
+    return tuple((exp.path.parent / out[k]).resolve() for k in ("runs_dir", "models_dir"))
+
+
+def _check_name(name: str, exp) -> str:
+    if not _NAME_RE.match(name or ""):
+        raise ConfigError(f"{exp.path}: run name {name!r} cannot be a folder name; use letters, digits, "
+                          "'_', '-' and '.' (not starting with '.'), e.g. --name {exp.name}_2")
+    return name
+
+
+def sample_experiment(path, *, out_dir=None, fresh=False, quiet=False, log=None):
+    """Build (or reuse from the cache) the sample table of an experiment file.
+
+    Parameters
+    ----------
+    path : path-like
+        Experiment TOML file.
+    out_dir : path-like, optional
+        Folder for the sample files (default ``<runs_dir>/<name>/samples``).
+    fresh : bool, default False
+        Ignore the cache and replace existing sample files in ``out_dir``.
+    quiet : bool, default False
+        No progress bars.
+    log : callable, optional
+        Receives the stage lines.
+
+    Returns
+    -------
+    SampleSet
+        Read back from ``out_dir``.
+
+    Raises
+    ------
+    OutputExistsError
+        ``out_dir`` holds sample files and ``fresh`` is false.
+    ConfigError, InputError, InsufficientDataError, ...
+        Before anything is written to ``out_dir``.
+    """
+    from mlsites.experiment._config import load_experiment
+    from mlsites.grid import read_grid
+
+    log = _Log(log)
+    exp = load_experiment(path)
+    runs_dir, _ = output_roots(exp)
+    out_dir = Path(out_dir) if out_dir is not None else runs_dir / exp.name / "samples"
+    if (out_dir / "samples.parquet").exists() and not fresh:
+        raise OutputExistsError(f"{out_dir}: sample files exist already; use --fresh to replace them "
+                                "or --out for another folder")
+    check_input_layers(exp, read_grid(exp["study"]["dem"]), log)
+    with log.stage("samples"):
+        folder, _, _ = _cached_samples(exp, runs_dir / ".cache", fresh=fresh, quiet=quiet, log=log)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    staging = Path(tempfile.mkdtemp(prefix=".samples.partial-", dir=out_dir))
+    try:
+        for p in folder.iterdir():
+            shutil.copy2(p, staging / p.name)
+        for p in staging.iterdir():
+            os.replace(p, out_dir / p.name)
+        if not (folder / "blocks.gpkg").exists():
+            (out_dir / "blocks.gpkg").unlink(missing_ok=True)
+    finally:
+        shutil.rmtree(staging, ignore_errors=True)
+    return _load_sample_set(out_dir)
+
+
+def _check_folds(exp, table):
+    """Every fold needs site cells among its test rows; say which fold and what to change."""
+    if exp["folds"]["method"] == "buffered_leave_one_out":
+        return
+    k = exp["folds"]["n_splits"]
+    counts = np.bincount(table.loc[table["label"] == 1, "fold"].to_numpy(), minlength=k)
+    empty = np.flatnonzero(counts[:k] == 0)
+    if empty.size:
+        size = exp["folds"]["block_size_m"]
+        hint = (f"use smaller blocks (block_size_m = {size:g} now, try {size / 2:g}) or fewer folds "
+                f"(n_splits = {k})") if size else f"use fewer folds (n_splits = {k})"
+        raise InsufficientDataError(
+            f"{exp.path}: fold {int(empty[0])} has no site cells in its test rows "
+            f"({int(counts.sum())} site cells in {k} folds); {hint} in [folds]"
+        )
+
+
+# ---------------------------------------------------------------- the run
+
+
+def _learner_factories(exp, categorical, seed):
+    from mlsites.learners import make_learner
+
+    factories = {}
+    for name in exp["learners"]["use"]:
+        params = dict(exp["learners"]["settings"].get(name, {}))
+        for key, value in params.items():
+            if isinstance(value, list):  # TOML has no tuples (hidden_layer_sizes and the like)
+                params[key] = tuple(value)
+        factory = functools.partial(make_learner, name, random_state=seed,
+                                    categorical_features=tuple(categorical), **params)
+        factory()  # unknown settings fail here, before any work
+        factories[name] = factory
+    if not factories:
+        raise ConfigError(f"{exp.path}: [learners] use is empty; name at least one learner")
+    return factories
+
+
+def _reserve(target: Path, fresh: bool, what: str, name: str):
+    if target.exists() and not fresh:
+        raise OutputExistsError(
+            f"{target}: the {what} of a run named {name!r} exists already; use --fresh to replace it "
+            f"or --name NEW_NAME to keep it"
+        )
+
+
+def _swap_into_place(staging: Path, target: Path):
+    """Rename ``staging`` to ``target``; an old ``target`` is removed only afterwards."""
+    old = None
+    if target.exists():
+        old = target.with_name(f".{target.name}.old-{os.getpid()}-{time.time_ns()}")
+        os.replace(target, old)
+    os.replace(staging, target)
+    if old is not None:
+        shutil.rmtree(old, ignore_errors=True)
+
+
+def _staging_dir(parent: Path, prefix: str) -> Path:
+    """A fresh hidden folder in ``parent`` with the usual permissions (mkdtemp gives 0700)."""
+    folder = Path(tempfile.mkdtemp(prefix=prefix, dir=parent))
+    umask = os.umask(0)
+    os.umask(umask)
+    folder.chmod(0o777 & ~umask)
+    return folder
+
+
+def _progress(total, desc, quiet):
+    from tqdm.auto import tqdm
+
+    return tqdm(total=total, desc=desc, unit="fit", disable=quiet, leave=False)
+
+
+def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_jobs=None) -> RunResult:
+    """Run an experiment file end to end: samples, cross-validation, models, tables.
+
+    Parameters
+    ----------
+    path : path-like
+        Experiment TOML file (may ``extends`` a base file).
+    fresh : bool, default False
+        Replace an existing run of the same name and ignore every cache.
+    name : str, optional
+        Run name (default: ``[study] name`` or the file stem); outputs go to
+        ``<runs_dir>/<name>`` and ``<models_dir>/<name>``.
+    quiet : bool, default False
+        No progress bars.
+    log : callable, optional
+        Receives each stage line as it happens (the CLI prints them); they are
+        also written to ``run.log``.
+    n_jobs : int, optional
+        Parallel (learner, fold) fits; results do not depend on it. Default: the
+        number of CPU cores, at most 4 (each worker holds a copy of the samples).
+
+    Returns
+    -------
+    RunResult
+
+    Raises
+    ------
+    OutputExistsError
+        The run or model folder exists and ``fresh`` is false (nothing touched).
+    ConfigError, InputError, InsufficientDataError, CRSError, ...
+        Bad input; nothing is left behind (no run folder, no partial folder).
+
+    Notes
+    -----
+    Run folder: ``manifest.json`` (resolved settings, input file hashes, library
+    versions, seed, seconds per stage), ``metrics_by_fold.csv``,
+    ``metrics_summary.csv``, ``zones.csv``, ``curves.csv``, ``capture_curves.png``,
+    ``roc_curves.png``, ``dropped_records.csv``, ``sampling.json``, ``run.log`` and
+    ``samples/`` (the sample table and folds every learner used). After
+    cross-validation each learner is refitted on all samples and saved with
+    :func:`save_model`. The sample table is always read back from its parquet
+    file, so a cached and a fresh run feed the learners identical data and give
+    identical metrics files.
+    """
+    import pandas as pd
+
+    from mlsites.evaluation import cross_validate, write_crossval
+    from mlsites.experiment._config import load_experiment
+    from mlsites.experiment._models import library_versions, save_model
+    from mlsites.experiment._samples import file_digest
+    from mlsites.grid import read_grid
+    from mlsites.learners import fit_learner
+
+    started = _dt.datetime.now(_dt.timezone.utc)
+    if n_jobs is None:
+        n_jobs = max(1, min(os.cpu_count() or 1, 4))
+    log = _Log(log)
+    t_start = time.perf_counter()
+    exp = load_experiment(path)
+    name = _check_name(name or exp.name, exp)
+    runs_dir, models_root = output_roots(exp)
+    run_dir, models_dir = runs_dir / name, models_root / name
+    _reserve(run_dir, fresh, "output folder", name)
+    _reserve(models_dir, fresh, "model folder", name)
+    seed = exp["study"]["seed"]
+    log(f"experiment {exp.name} ({exp.path.name}), run {name}, seed {seed}")
+    with log.stage("checks"):
+        grid = read_grid(exp["study"]["dem"])
+        check_input_layers(exp, grid, log)
+    runs_dir.mkdir(parents=True, exist_ok=True)
+    models_root.mkdir(parents=True, exist_ok=True)
+    staging = _staging_dir(runs_dir, f".{name}.partial-")
+    model_staging = _staging_dir(models_root, f".{name}.partial-")
+    try:
+        with log.stage("samples"):
+            hashes = _file_hashes(exp)
+            folder, key, cached = _cached_samples(exp, runs_dir / ".cache", fresh=fresh, quiet=quiet, log=log)
+            shutil.copytree(folder, staging / "samples")
+            for fname in _SAMPLE_REPORTS:
+                shutil.copy2(folder / fname, staging / fname)
+            samples = _load_sample_set(staging / "samples")
+            table, features, categorical = samples.table, samples.features, samples.categorical
+            _check_folds(exp, table)
+            n_sites = int(table.loc[table["label"] == 1, "site_id"].nunique())
+            log(f"samples: {int((table['label'] == 1).sum())} site cells of {n_sites} sites, "
+                f"{int((table['label'] == 0).sum())} background cells, {len(features)} features")
+        factories = _learner_factories(exp, categorical, seed)
+        ev = exp["evaluation"]
+        with log.stage("cross-validation"):
+            with _progress(len(factories) * int(table["fold"].nunique()), "cross-validation", quiet) as bar:
+                result = cross_validate(table, features=features, categorical=categorical, learners=factories,
+                                        fold_column="fold", random_state=seed, zone_targets=ev["zone_targets"],
+                                        top_area_shares=tuple(ev["top_area_shares"]), n_jobs=n_jobs,
+                                        progress=bar)
+            write_crossval(result, staging)
+            best = result.summary.iloc[0]
+            log(f"best learner by mean fold AUC: {best['learner']} ({best['auc_mean']:.3f})")
+        with log.stage("models"):
+            data_hash = file_digest(staging / "samples" / "samples.parquet")
+            X, y, w = table[features], table["label"].to_numpy(), table["weight"].to_numpy()
+            rows = result.summary.set_index("learner")
+            with _progress(len(factories), "refit on all samples", quiet) as bar:
+                for lname, factory in factories.items():
+                    t0 = time.perf_counter()
+                    estimator = fit_learner(factory(), X, y, sample_weight=w)
+                    save_model(estimator, model_staging, lname, features=features, categorical=categorical,
+                               grid=grid, training_data_sha256=data_hash,
+                               settings={"learner": lname, "seed": seed,
+                                         "params": exp["learners"]["settings"].get(lname, {})},
+                               metrics=rows.loc[lname].to_dict() if lname in rows.index else {},
+                               extra={"experiment": exp.name, "run": name,
+                                      "n_samples": int(len(table)), "n_sites": n_sites})
+                    bar.update(1)
+                    log(f"model {lname}: fitted on all {len(table)} samples in {time.perf_counter() - t0:.1f} s")
+        log(f"run {name}: done in {time.perf_counter() - t_start:.1f} s")
+        manifest = {
+            "run": name, "experiment": exp.name, "experiment_file": str(exp.path),
+            "sources": [str(p) for p in exp.sources], "settings": exp.settings,
+            "input_files": hashes, "samples": {"key": key, "cached": cached, "sha256": data_hash,
+                                               "features": features, "categorical": categorical},
+            "seed": seed, "versions": library_versions(), "seconds": dict(log.stages),
+            "started_utc": started.isoformat(timespec="seconds"),
+            "finished_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
+            "run_dir": str(run_dir), "models_dir": str(models_dir), "learners": list(factories),
+        }
+        (staging / "manifest.json").write_text(json.dumps(manifest, indent=2, default=str) + "\n")
+        (staging / "run.log").write_text("\n".join(log.lines) + "\n")
+        # A run that appeared meanwhile (another process) is not replaced without fresh.
+        _reserve(run_dir, fresh, "output folder", name)
+        _reserve(models_dir, fresh, "model folder", name)
+        _swap_into_place(model_staging, models_dir)
+        _swap_into_place(staging, run_dir)
+    finally:
+        shutil.rmtree(staging, ignore_errors=True)
+        shutil.rmtree(model_staging, ignore_errors=True)
+    summary = pd.read_csv(run_dir / "metrics_summary.csv")
+    return RunResult(name=name, run_dir=run_dir, models_dir=models_dir, summary=summary, manifest=manifest)
