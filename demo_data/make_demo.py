@@ -14,13 +14,10 @@ import sys
 from pathlib import Path
 
 try:
-    from mlsites.experiment._demo import write_demo_data
+    from mlsites.experiment._demo import DEMO_SETTINGS, write_demo_data
 except ImportError:  # run from a source checkout without installing
     sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
-    from mlsites.experiment._demo import write_demo_data
-
-#: Settings of the shipped files; experiments/demo.toml expects them.
-DEMO_SETTINGS = dict(shape=(600, 600), cellsize=10.0, n_sites=360, random_state=7)
+    from mlsites.experiment._demo import DEMO_SETTINGS, write_demo_data
 
 if __name__ == "__main__":
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])

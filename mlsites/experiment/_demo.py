@@ -16,10 +16,12 @@ import numpy as np
 
 from mlsites.errors import OutputExistsError
 
-__all__ = ["DEMO_FILES", "write_demo_data"]
+__all__ = ["DEMO_FILES", "DEMO_SETTINGS", "write_demo_data", "prepare_demo_folder"]
 
 #: Files written by :func:`write_demo_data`.
 DEMO_FILES = ("dem.tif", "soil.tif", "streams.gpkg", "sites.gpkg", "survey.gpkg")
+#: Settings of the files shipped in ``demo_data/`` (``experiments/demo.toml`` expects them).
+DEMO_SETTINGS = dict(shape=(600, 600), cellsize=10.0, n_sites=360, random_state=7)
 
 
 def _write_vector(frame, path: Path, layer: str):
@@ -88,3 +90,55 @@ def write_demo_data(directory, *, shape=(600, 600), cellsize: float = 10.0, n_si
     _write_vector(virtual.sites, paths["sites"], "sites")
     _write_vector(virtual.survey, paths["survey"], "survey")
     return paths
+
+
+def _source_folders():
+    """Folders that may hold ``demo_data/`` and ``experiments/``: the source checkout, the cwd."""
+    here = Path(__file__).resolve().parent.parent.parent
+    return [here] if here == Path.cwd().resolve() else [here, Path.cwd().resolve()]
+
+
+def prepare_demo_folder(out_dir, *, log=None) -> Path:
+    """Lay out a runnable copy of the demo in ``out_dir``; return its experiment file.
+
+    ``out_dir`` gets ``experiments/demo.toml`` and ``demo_data/`` (copied from the
+    source folder, or built with :data:`DEMO_SETTINGS` when no copy is found), so
+    the experiment's relative paths (``../demo_data``, ``../runs``, ``../models``)
+    resolve inside ``out_dir``. Files already there are kept.
+
+    Raises
+    ------
+    InputError
+        ``experiments/demo.toml`` is found neither in the source folder nor in the
+        working directory.
+    """
+    import shutil
+
+    from mlsites.errors import InputError
+
+    log = log or (lambda m: None)
+    out_dir = Path(out_dir)
+    sources = _source_folders()
+    toml = next((f / "experiments" / "demo.toml" for f in sources if (f / "experiments" / "demo.toml").exists()),
+                None)
+    target = out_dir / "experiments" / "demo.toml"
+    if not target.exists():
+        if toml is None:
+            raise InputError("experiments/demo.toml not found next to the mlsites sources or in the working "
+                             "folder; run `mlsites demo` from the mlsites source folder")
+        target.parent.mkdir(parents=True, exist_ok=True)
+        shutil.copy2(toml, target)
+    data = out_dir / "demo_data"
+    if all((data / f).exists() for f in DEMO_FILES):
+        return target
+    shipped = next((f / "demo_data" for f in sources if all((f / "demo_data" / n).exists() for n in DEMO_FILES)),
+                   None)
+    data.mkdir(parents=True, exist_ok=True)
+    if shipped is not None and shipped.resolve() != data.resolve():
+        for name in DEMO_FILES:
+            shutil.copy2(shipped / name, data / name)
+        log(f"copied the demo data from {shipped} to {data}")
+    else:
+        log(f"building the demo data in {data}")
+        write_demo_data(data, overwrite=True, **DEMO_SETTINGS)
+    return target
