@@ -116,16 +116,17 @@ def _heap_pop(hkey, hidx, size):
 
 
 @ngjit
-def _grown(a, n_used):
-    b = np.empty(2 * a.size, dtype=a.dtype)
-    b[:n_used] = a[:n_used]
+def _grown(a, n_used, limit):
+    b = np.empty(min(2 * a.size, max(limit, a.size + 1)), dtype=a.dtype)
+    for t in range(n_used):  # an explicit loop compiles much faster than a slice copy
+        b[t] = a[t]
     return b
 
 
 @ngjit
-def _grown_ring(a, head, n_used):
+def _grown_ring(a, head, n_used, limit):
     """Double a ring buffer, unrolling it so the oldest entry sits at index 0."""
-    b = np.empty(2 * a.size, dtype=a.dtype)
+    b = np.empty(min(2 * a.size, max(limit, a.size + 1)), dtype=a.dtype)
     for t in range(n_used):
         b[t] = a[(head + t) % a.size]
     return b
@@ -134,14 +135,23 @@ def _grown_ring(a, head, n_used):
 # ------------------------------------------------------------ priority-flood ----
 @ngjit
 def _flood_setup_kernel(z, closed, n_rows, n_cols):
-    """Turn elevations into keys, mark nodata; return the number of seed cells."""
+    """Turn elevations into keys and mark nodata and seeds.
+
+    Returns (seed cells, valid cells, infinite cells).
+    """
     n = n_rows * n_cols
+    n_valid = 0
+    n_inf = 0
     for p in range(n):
-        if _is_nan_bits(z[p]):
+        b = z[p]
+        if _is_nan_bits(b):
             closed[p] = _NODATA_MARK
-        else:
-            closed[p] = 0
-            z[p] = _to_key(z[p])
+            continue
+        closed[p] = 0
+        n_valid += 1
+        if (b & _EXP) == _EXP:
+            n_inf += 1
+        z[p] = _to_key(b)
     n_seeds = 0
     for p in range(n):
         if closed[p] == _NODATA_MARK:
@@ -155,7 +165,7 @@ def _flood_setup_kernel(z, closed, n_rows, n_cols):
         if seed:
             closed[p] = 3  # seeds are pushed in raster order by the flood kernel
             n_seeds += 1
-    return n_seeds
+    return n_seeds, n_valid, n_inf
 
 
 @ngjit
@@ -163,15 +173,19 @@ def _priority_flood_kernel(z, closed, n_rows, n_cols, epsilon):
     """Fill depressions in place on flat uint32 elevation bits ``z``.
 
     ``closed`` (uint8, same size) is scratch: it ends as 1 on valid cells and 2
-    on nodata. Returns the largest sizes reached by the priority queue and the
-    pit queue (for memory reports).
+    on nodata. Returns (valid cells, infinite cells, largest priority-queue size,
+    largest pit-queue size); with infinite or no valid cells nothing is filled
+    and ``z`` is left as keys.
     """
     n = n_rows * n_cols
-    n_seeds = _flood_setup_kernel(z, closed, n_rows, n_cols)
-    cap = max(_MIN_QUEUE, 2 * n_seeds)
+    n_seeds, n_valid, n_inf = _flood_setup_kernel(z, closed, n_rows, n_cols)
+    if n_inf > 0 or n_valid == 0:
+        return n_valid, n_inf, 0, 0
+    # Queues start small and grow; each cell is queued once, so n_valid bounds them.
+    cap = min(max(_MIN_QUEUE, 2 * n_seeds), n_valid)
     hkey = np.empty(cap, dtype=np.uint64)
     hidx = np.empty(cap, dtype=np.int32)
-    pit = np.empty(_MIN_QUEUE, dtype=np.int32)
+    pit = np.empty(min(_MIN_QUEUE, n_valid), dtype=np.int32)
     size = 0
     counter = 0
     for p in range(n):
@@ -206,15 +220,15 @@ def _priority_flood_kernel(z, closed, n_rows, n_cols, epsilon):
             if z[q] <= zc:
                 z[q] = zc
                 if n_pit == pit.size:
-                    pit = _grown_ring(pit, head, n_pit)
+                    pit = _grown_ring(pit, head, n_pit, n_valid)
                     head = 0
                 pit[(head + n_pit) % pit.size] = q
                 n_pit += 1
                 max_pit = max(max_pit, n_pit)
             else:
                 if size == hkey.size:
-                    hkey = _grown(hkey, size)
-                    hidx = _grown(hidx, size)
+                    hkey = _grown(hkey, size, n_valid)
+                    hidx = _grown(hidx, size, n_valid)
                 key = (np.uint64(z[q]) << _SHIFT) | np.uint64(counter)
                 size = _heap_push(hkey, hidx, size, key, q)
                 counter += 1
@@ -222,7 +236,7 @@ def _priority_flood_kernel(z, closed, n_rows, n_cols, epsilon):
     for p in range(n):
         if closed[p] != _NODATA_MARK:
             z[p] = _from_key(z[p])
-    return max_heap, max_pit
+    return n_valid, n_inf, max_heap, max_pit
 
 
 # --------------------------------------------------------------------- D8 -------
@@ -253,12 +267,16 @@ def _flow_direction_kernel(z, dx, dy, out):
 
 
 # -------------------------------------------------------- flow accumulation -----
-@pjit
+@ngjit
 def _indegree_kernel(direction, indeg):
-    """Count the neighbours draining into each cell; return the number of bad codes."""
+    """Count the neighbours draining into each cell.
+
+    Returns (cells with invalid codes, valid cells).
+    """
     n_rows, n_cols = direction.shape
     n_bad = 0
-    for i in prange(n_rows):
+    n_valid = 0
+    for i in range(n_rows):
         for j in range(n_cols):
             d = direction[i, j]
             if _CODE_TO_K[d] == -2:
@@ -266,13 +284,14 @@ def _indegree_kernel(direction, indeg):
             if d == NODATA_CODE:
                 indeg[i, j] = DONE
                 continue
+            n_valid += 1
             count = 0
             for k in range(8):
                 ii, jj = i + _DI[k], j + _DJ[k]
                 if 0 <= ii < n_rows and 0 <= jj < n_cols and direction[ii, jj] == D8_CODES[(k + 4) % 8]:
                     count += 1
             indeg[i, j] = count
-    return n_bad
+    return n_bad, n_valid
 
 
 @ngjit
@@ -320,10 +339,10 @@ def _accumulate_kernel(direction, indeg, acc, n_rows, n_cols):
 
 
 # ------------------------------------------------------------------ streams -----
-@pjit
+@ngjit
 def _stream_cells_kernel(acc, min_cells, out):
     n_rows, n_cols = acc.shape
-    for i in prange(n_rows):
+    for i in range(n_rows):
         for j in range(n_cols):
             a = acc[i, j]
             if a == 0:
@@ -372,18 +391,18 @@ def _hand_kernel(z, direction, streams, out, n_rows, n_cols):
 
 # ------------------------------------------------------ Euclidean distance -------
 @pjit
-def _column_pass_kernel(mask, out):
-    """Distance in cells to the nearest True cell of the same column (inf if none)."""
-    n_rows, n_cols = mask.shape
+def _column_pass_kernel(grid, target, out):
+    """Distance in cells to the nearest ``target`` cell of the same column (inf if none)."""
+    n_rows, n_cols = grid.shape
     n_strips = (n_cols + _STRIP - 1) // _STRIP
     for s in prange(n_strips):
         j0 = s * _STRIP
         j1 = min(n_cols, j0 + _STRIP)
         for j in range(j0, j1):
-            out[0, j] = 0.0 if mask[0, j] else np.inf
+            out[0, j] = 0.0 if grid[0, j] == target else np.inf
         for i in range(1, n_rows):
             for j in range(j0, j1):
-                out[i, j] = 0.0 if mask[i, j] else out[i - 1, j] + 1.0
+                out[i, j] = 0.0 if grid[i, j] == target else out[i - 1, j] + 1.0
         for i in range(n_rows - 2, -1, -1):
             for j in range(j0, j1):
                 out[i, j] = min(out[i, j], out[i + 1, j] + 1.0)
@@ -447,3 +466,13 @@ def _row_pass_kernel(out, dx, dy):
             _lower_envelope_1d(f, dx, v, zb, d)
             for j in range(n_cols):
                 out[i, j] = math.sqrt(d[j])
+
+
+@ngjit
+def _nan_where_kernel(out, grid, value):
+    """Set ``out`` to NaN where ``grid == value`` (no temporary mask)."""
+    n_rows, n_cols = out.shape
+    for i in range(n_rows):
+        for j in range(n_cols):
+            if grid[i, j] == value:
+                out[i, j] = np.nan

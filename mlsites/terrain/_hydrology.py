@@ -5,10 +5,11 @@ columns run east, NaN is nodata in elevation inputs. Cell sizes are in metres,
 either one float for square cells or ``(dx, dy)``. The kernels live in
 :mod:`mlsites.terrain._hydro_kernels`.
 
-Memory (measured on a 4000 x 4000 float32 DEM, see ``tests/benchmarks``): the
-chain run by :func:`hydrology_layers` keeps one float32 copy of the DEM, a uint8
-scratch grid that becomes the D8 grid, and only the outputs still needed, in the
-order fill -> D8 -> accumulation -> streams -> HAND -> distance.
+Memory: the chain run by :func:`hydrology_layers` keeps one float32 copy of the
+DEM, a uint8 scratch grid that becomes the D8 grid, and only the grids still
+needed, in the order fill -> D8 -> accumulation -> streams -> HAND -> distance.
+Peaks measured on 4000 x 4000 float32 DEMs are given in its Notes
+(``tests/benchmarks/bench_hydrology.py``).
 """
 
 import numbers
@@ -105,19 +106,18 @@ def _fill(dem, epsilon):
     """Run the priority-flood; return (filled float32, uint8 scratch, queue peaks)."""
     a = _check_elevation(dem, "DEM")
     filled = np.array(a, dtype=np.float32, order="C", copy=True)
-    if np.isinf(filled).any():
-        n_inf = int(np.count_nonzero(np.isinf(filled)))
+    scratch = np.empty(filled.shape, dtype=np.uint8)
+    n_valid, n_inf, max_heap, max_pit = _k._priority_flood_kernel(
+        filled.reshape(-1).view(np.uint32), scratch.reshape(-1), *filled.shape, bool(epsilon)
+    )
+    if n_inf:
         raise InputError(
             f"DEM has {n_inf} infinite cell(s) (after casting to float32); "
             "expected finite elevations with NaN as nodata; set them to NaN"
         )
-    scratch = np.empty(filled.shape, dtype=np.uint8)
-    peaks = _k._priority_flood_kernel(
-        filled.reshape(-1).view(np.uint32), scratch.reshape(-1), *filled.shape, bool(epsilon)
-    )
-    if (scratch == 2).all():
+    if n_valid == 0:
         raise InputError("DEM has no valid cell (all NaN); expected some elevations")
-    return filled, scratch, peaks
+    return filled, scratch, (max_heap, max_pit)
 
 
 def fill_depressions(dem, *, epsilon=True):
@@ -258,7 +258,7 @@ def flow_accumulation(direction):
             )
         d = d.astype(np.uint8)
     indeg = np.empty(d.shape, dtype=np.uint8)
-    n_bad = _k._indegree_kernel(d, indeg)
+    n_bad, n_valid = _k._indegree_kernel(d, indeg)
     if n_bad:
         raise InputError(
             f"flow direction grid has {n_bad} cell(s) with codes other than "
@@ -266,7 +266,6 @@ def flow_accumulation(direction):
         )
     acc = np.zeros(d.shape, dtype=np.uint32)
     n_done = _k._accumulate_kernel(d.reshape(-1), indeg.reshape(-1), acc.reshape(-1), *d.shape)
-    n_valid = d.size - int(np.count_nonzero(d == _k.NODATA_CODE))
     if n_done != n_valid:
         raise InputError(
             f"flow direction grid has {n_valid - n_done} cell(s) on cycles; "
@@ -401,21 +400,26 @@ def distance_to_cells(mask, cellsize):
     m = _check_grid(mask, "target mask")
     if m.dtype != np.bool_:
         m = m.astype(bool)
-    dx, dy = _check_cellsize(cellsize)
-    out = np.empty(m.shape, dtype=np.float32)
-    _k._column_pass_kernel(np.ascontiguousarray(m), out)
+    # A bool grid viewed as uint8 (True = 1) shares the kernel compiled for stream grids.
+    return _distance_to_value(np.ascontiguousarray(m).view(np.uint8), np.uint8(1), *_check_cellsize(cellsize))
+
+
+def _distance_to_value(grid, target, dx, dy):
+    """Distance transform to the cells where ``grid == target``."""
+    out = np.empty(grid.shape, dtype=np.float32)
+    _k._column_pass_kernel(grid, target, out)
     _k._row_pass_kernel(out, dx, dy)
     return out
 
 
 # ----------------------------------------------------------------- the chain ----
-def hydrology_layers(dem, cellsize, *, stream_threshold_km2, epsilon=True, wanted=None):
+def hydrology_layers(dem, cellsize, *, stream_threshold_km2, epsilon=True, wanted=None, on_layer=None):
     """Run fill -> D8 -> accumulation -> streams -> HAND -> stream distance.
 
     Parameters
     ----------
     dem : array_like of shape (rows, cols)
-        Elevations in metres, NaN = nodata.
+        Elevations in metres, NaN = nodata. Not modified.
     cellsize : float or (float, float)
         Cell size in metres, or ``(dx, dy)``.
     stream_threshold_km2 : float
@@ -426,19 +430,37 @@ def hydrology_layers(dem, cellsize, *, stream_threshold_km2, epsilon=True, wante
         Layers to return, any of ``HYDROLOGY_LAYERS``: 'filled', 'direction',
         'accumulation', 'streams', 'hand', 'stream_distance'. Default: all.
         Intermediates not wanted are freed as soon as no later step needs them.
+    on_layer : callable, optional
+        Called as ``on_layer(name, array)`` for each wanted layer as soon as it
+        is final (in ``HYDROLOGY_LAYERS`` order); the layer is then left out of
+        the returned dict and dropped once no later step needs it, so a caller
+        that writes and forgets each layer keeps the memory peak low. The
+        array must not be modified.
 
     Returns
     -------
     layers : dict of str to ndarray
-        The wanted layers: 'filled' float32, 'direction' uint8 (255 nodata),
-        'accumulation' uint32 (0 nodata), 'streams' uint8 (255 nodata), 'hand'
-        float32 and 'stream_distance' float32 in metres (NaN on nodata).
+        The wanted layers not passed to ``on_layer``: 'filled' float32,
+        'direction' uint8 (255 nodata), 'accumulation' uint32 (0 nodata),
+        'streams' uint8 (255 nodata), 'hand' float32 and 'stream_distance'
+        float32 in metres (NaN on nodata).
 
     Raises
     ------
     InputError
         For bad inputs (see the step functions), an unknown layer name, or no
         stream cell at the threshold when 'hand' or 'stream_distance' is wanted.
+
+    Notes
+    -----
+    Peak memory above the input, per cell, measured on 4000 x 4000 float32 DEMs
+    (``tests/benchmarks/bench_hydrology.py``): the filled DEM (4 bytes) lives
+    until HAND is done, D8 reuses the flood's uint8 scratch grid, accumulation
+    adds 4 + 1 (uint8 in-degrees), HAND and the distance 4 each. All six layers
+    returned: 18 bytes; all but 'filled': 14; 'hand' and 'stream_distance': 10;
+    any set with ``on_layer`` writing each layer away: 10. The flood queues add
+    0.4-1.5 bytes on real terrain (see :func:`fill_depressions`), below the
+    later peaks.
     """
     wanted = set(HYDROLOGY_LAYERS) if wanted is None else set(wanted)
     unknown = wanted - set(HYDROLOGY_LAYERS)
@@ -455,32 +477,34 @@ def hydrology_layers(dem, cellsize, *, stream_threshold_km2, epsilon=True, wante
         not isinstance(stream_threshold_km2, numbers.Real) or not stream_threshold_km2 > 0
     ):
         raise InputError(f"stream_threshold_km2={stream_threshold_km2!r} must be a positive number")
-    out = {}
-    if not needed:
-        return out
-    grids = {}
-    grids["filled"], scratch, _ = _fill(dem, epsilon)
+    grids, kept = {}, set(wanted) if on_layer is None else set()
 
-    def release(done):
-        # Drop every grid that is neither wanted nor needed by a step after `done`.
-        later = set().union(*(_NEEDS[n] for n in HYDROLOGY_LAYERS[HYDROLOGY_LAYERS.index(done) + 1:]
-                              if n in needed))
+    def finish(done):
+        # Hand over a finished layer, then drop every grid no later step needs.
+        if done in wanted and on_layer is not None:
+            on_layer(done, grids[done])
+        later = HYDROLOGY_LAYERS[HYDROLOGY_LAYERS.index(done) + 1:]
+        still = set().union(*(_NEEDS[n] for n in later if n in needed))
         for name in list(grids):
-            if name not in wanted and name not in later:
+            if name not in kept and name not in still:
                 del grids[name]
 
+    if not needed:
+        return {}
+    grids["filled"], scratch, _ = _fill(dem, epsilon)
+    finish("filled")
     if "direction" in needed:
         grids["direction"] = _direction_into(grids["filled"], dx, dy, scratch)
+        finish("direction")
     del scratch
-    release("direction")
     if "accumulation" in needed:
         grids["accumulation"] = flow_accumulation(grids["direction"])
-        release("accumulation")
+        finish("accumulation")
     if "streams" in needed:
         grids["streams"] = stream_cells(
             grids["accumulation"], threshold_km2=stream_threshold_km2, cell_area_m2=dx * dy
         )
-        release("streams")
+        finish("streams")
         uses = sorted({"hand", "stream_distance"} & wanted)
         if uses and not (grids["streams"] == 1).any():
             raise InputError(
@@ -489,10 +513,10 @@ def hydrology_layers(dem, cellsize, *, stream_threshold_km2, epsilon=True, wante
             )
     if "hand" in wanted:
         grids["hand"] = height_above_drainage(grids["filled"], grids["direction"], grids["streams"])
-        release("hand")
+        finish("hand")
     if "stream_distance" in wanted:
-        dist = distance_to_cells(grids["streams"] == 1, (dx, dy))
-        dist[grids["streams"] == _k.NODATA_CODE] = np.nan
+        dist = _distance_to_value(grids["streams"], np.uint8(1), dx, dy)
+        _k._nan_where_kernel(dist, grids["streams"], np.uint8(_k.NODATA_CODE))
         grids["stream_distance"] = dist
-        release("stream_distance")
-    return {name: grids[name] for name in HYDROLOGY_LAYERS if name in wanted}
+        finish("stream_distance")
+    return {name: grids[name] for name in HYDROLOGY_LAYERS if name in kept}

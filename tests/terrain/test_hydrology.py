@@ -409,6 +409,19 @@ def test_wanted_subset_equals_full_run(dem):
     np.testing.assert_array_equal(np.isnan(dist), np.isnan(dem))
 
 
+@pytest.mark.parametrize("wanted", [None, {"hand", "accumulation"}])
+def test_on_layer_receives_each_layer_once_in_order(dem, wanted):
+    full = hydrology_layers(dem, 5.0, stream_threshold_km2=2e-4)
+    seen = []
+    rest = hydrology_layers(dem, 5.0, stream_threshold_km2=2e-4, wanted=wanted,
+                            on_layer=lambda name, a: seen.append((name, a.copy())))
+    assert rest == {}
+    expected = [n for n in HYDROLOGY_LAYERS if wanted is None or n in wanted]
+    assert [name for name, _ in seen] == expected
+    for name, array in seen:
+        np.testing.assert_array_equal(array, full[name])
+
+
 def test_hydrology_layers_errors():
     with pytest.raises(InputError, match="unknown hydrology layer"):
         hydrology_layers(DEM_6, CELL_6, stream_threshold_km2=1.0, wanted={"slope"})
