@@ -200,7 +200,8 @@ def _priority_flood_kernel(z, closed, n_rows, n_cols, epsilon):
     max_pit = 0
     lift = np.uint32(1) if epsilon else np.uint32(0)
     while size > 0 or n_pit > 0:
-        # A queued cell at exactly the pit's level goes first (Barnes et al. 2014).
+        # A queued cell at exactly the pit's level goes first (after Barnes et al. 2014,
+        # from memory), so its neighbours rise from its level, not from later pit steps.
         if n_pit > 0 and not (size > 0 and (hkey[0] >> _SHIFT) == np.uint64(z[pit[head]])):
             c = np.int64(pit[head])
             head = (head + 1) % pit.size

@@ -81,7 +81,7 @@ def _check_grid(array, name):
 
 def _check_elevation(dem, name):
     a = _check_grid(dem, name)
-    if a.dtype.kind not in "fiu" or a.dtype.kind == "b":
+    if a.dtype.kind not in "fiu":
         raise InputError(f"{name} has dtype {a.dtype}; a numeric elevation grid is needed")
     return a
 
@@ -307,6 +307,11 @@ def stream_cells(accumulation, *, threshold_km2, cell_area_m2):
     if acc.dtype.kind == "f":
         acc = np.where(np.isnan(acc), 0, acc).astype(np.uint32)
     elif acc.dtype != np.uint32:
+        if acc.dtype.kind not in "iu" or acc.min() < 0:
+            raise InputError(
+                f"flow accumulation grid has dtype {acc.dtype} (min {acc.min()}); "
+                "expected non-negative cell counts, as from flow_accumulation"
+            )
         acc = acc.astype(np.uint32)
     min_cells = threshold_km2 * _M2_PER_KM2 / cell_area_m2 * (1.0 - _THRESHOLD_SLACK)
     out = np.empty(acc.shape, dtype=np.uint8)
