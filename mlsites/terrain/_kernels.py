@@ -310,62 +310,71 @@ def _ring_tables(dx, dy, outer, inner, max_reach):
 
 
 @ngjit
-def _row_prefix_sums(dem, offset, pad):
-    """Per-row prefix sums of (z - offset) over valid cells, and of valid counts.
+def _row_prefix_sums(dem, offset, pad, r, sums, counts):
+    """Prefix sums of row ``r``: (z - offset) over valid cells, and valid counts.
 
     Column ``j + pad`` holds the sum over columns < j; the ``pad`` columns on each
     side repeat the end values, so a window sum needs no clamping at the edges.
     """
-    n_rows, n_cols = dem.shape
-    sums = np.empty((n_rows, n_cols + 1 + 2 * pad), dtype=np.float64)
-    counts = np.empty((n_rows, n_cols + 1 + 2 * pad), dtype=np.float64)
-    for r in range(n_rows):
-        s = 0.0
-        n = 0.0
-        for j in range(pad + 1):
-            sums[r, j] = 0.0
-            counts[r, j] = 0.0
-        for c in range(n_cols):
-            z = np.float64(dem[r, c])
-            valid = not math.isnan(z)
-            s += z - offset if valid else 0.0
-            n += 1.0 if valid else 0.0
-            sums[r, c + pad + 1] = s
-            counts[r, c + pad + 1] = n
-        for j in range(n_cols + pad + 1, n_cols + 1 + 2 * pad):
-            sums[r, j] = s
-            counts[r, j] = n
-    return sums, counts
-
-
-@ngjit
-def _add_row_segments(sums, counts, rr, half, pad, sign, total, n_valid):
-    """Add ``sign`` times the sums over columns c-half..c+half of row rr, for every c."""
-    s_row = sums[rr]
-    n_row = counts[rr]
-    lo = pad - half
-    hi = pad + half + 1
-    for c in range(total.shape[0]):
-        total[c] += sign * (s_row[c + hi] - s_row[c + lo])
-        n_valid[c] += sign * (n_row[c + hi] - n_row[c + lo])
-
-
-@ngjit
-def _tpi_row(dem, sums, counts, w_out, w_in, r, offset, pad, out):
-    """TPI of every cell of row ``r`` (see :func:`_tpi_kernel`)."""
-    n_rows, n_cols = dem.shape
-    reach = (w_out.shape[0] - 1) // 2
-    total = np.zeros(n_cols, dtype=np.float64)
-    n_valid = np.zeros(n_cols, dtype=np.float64)
-    for k in range(max(-reach, -r), min(reach, n_rows - 1 - r) + 1):
-        if w_out[k + reach] >= 0:
-            _add_row_segments(sums, counts, r + k, w_out[k + reach], pad, 1.0, total, n_valid)
-        if w_in[k + reach] >= 0:
-            _add_row_segments(sums, counts, r + k, w_in[k + reach], pad, -1.0, total, n_valid)
+    n_cols = dem.shape[1]
+    s = 0.0
+    n = 0.0
+    sums[r, : pad + 1] = 0.0
+    counts[r, : pad + 1] = 0.0
     for c in range(n_cols):
-        # n_valid holds exact small integers, so > 0.5 means at least one cell
-        mean = total[c] / n_valid[c] if n_valid[c] > 0.5 else np.nan
-        out[r, c] = (np.float64(dem[r, c]) - offset) - mean
+        z = np.float64(dem[r, c])
+        valid = not math.isnan(z)
+        s += z - offset if valid else 0.0
+        n += 1.0 if valid else 0.0
+        sums[r, c + pad + 1] = s
+        counts[r, c + pad + 1] = n
+    sums[r, n_cols + pad + 1:] = s
+    counts[r, n_cols + pad + 1:] = n
+
+
+@ngjit
+def _add_row_segments(sums, counts, rr, half, pad, c0, sign, total, n_valid):
+    """Add ``sign`` times the window sums over columns c-half..c+half of row ``rr``.
+
+    For the columns c = c0 .. c0 + len(total) - 1; slicing first keeps the loop
+    indices provably non-negative, so the loop vectorises.
+    """
+    width = total.shape[0]
+    lo = c0 + pad - half
+    hi = c0 + pad + half + 1
+    s_hi, s_lo = sums[rr, hi:hi + width], sums[rr, lo:lo + width]
+    n_hi, n_lo = counts[rr, hi:hi + width], counts[rr, lo:lo + width]
+    for j in range(width):
+        total[j] += sign * (s_hi[j] - s_lo[j])
+        n_valid[j] += sign * (n_hi[j] - n_lo[j])
+
+
+@ngjit
+def _tpi_stripe(dem, sums, counts, w_out, w_in, offset, pad, c0, c1, out):
+    """TPI of columns c0 .. c1-1 for every row, top to bottom.
+
+    Working down one stripe keeps the prefix-sum rows of the ring in cache from one
+    row to the next (the ring of row r+1 shares all but one row with that of r).
+    """
+    n_rows = dem.shape[0]
+    reach = (w_out.shape[1] - 1) // 2
+    total = np.empty(c1 - c0)
+    n_valid = np.empty(c1 - c0)
+    for r in range(n_rows):
+        total[:] = 0.0
+        n_valid[:] = 0.0
+        for k in range(max(-reach, -r), min(reach, n_rows - 1 - r) + 1):
+            if w_out[r, k + reach] >= 0:
+                _add_row_segments(sums, counts, r + k, w_out[r, k + reach], pad, c0, 1.0, total, n_valid)
+            if w_in[r, k + reach] >= 0:
+                _add_row_segments(sums, counts, r + k, w_in[r, k + reach], pad, c0, -1.0, total, n_valid)
+        for j in range(c1 - c0):
+            # n_valid holds exact small integers, so > 0.5 means at least one cell
+            mean = total[j] / n_valid[j] if n_valid[j] > 0.5 else np.nan
+            out[r, c0 + j] = (np.float64(dem[r, c0 + j]) - offset) - mean
+
+
+_TPI_STRIPE_COLS = 512  # with a 50-cell reach the ring's stripe of prefix sums fits in L2
 
 
 @pjit
@@ -375,14 +384,17 @@ def _tpi_kernel(dem, w_out, w_in, offset):
     Mean over the valid cells of the ring, NaN if the centre is NaN or no ring cell
     is valid. Cost per cell is O(number of ring rows): each ring row adds a
     difference of two row prefix sums of (z - offset); ``offset`` (a typical
-    elevation) keeps those sums small and precise.
+    elevation) keeps those sums small and precise. Parallel over column stripes.
     """
     n_rows, n_cols = dem.shape
     pad = max(int(w_out.max()), 0) + 1
-    sums, counts = _row_prefix_sums(dem, offset, pad)
-    out = np.empty((n_rows, n_cols), dtype=np.float64)
+    sums = np.empty((n_rows, n_cols + 1 + 2 * pad), dtype=np.float64)
+    counts = np.empty((n_rows, n_cols + 1 + 2 * pad), dtype=np.float64)
     for r in prange(n_rows):
-        # numba may type a prange index starting at 0 as unsigned, and -r in
-        # _tpi_row would then wrap around; pass it as a signed integer.
-        _tpi_row(dem, sums, counts, w_out[r], w_in[r], np.int64(r), offset, pad, out)
+        _row_prefix_sums(dem, offset, pad, r, sums, counts)
+    out = np.empty((n_rows, n_cols), dtype=np.float64)
+    n_stripes = (n_cols + _TPI_STRIPE_COLS - 1) // _TPI_STRIPE_COLS
+    for s in prange(n_stripes):
+        c0 = np.int64(s) * _TPI_STRIPE_COLS
+        _tpi_stripe(dem, sums, counts, w_out, w_in, offset, pad, c0, min(c0 + _TPI_STRIPE_COLS, n_cols), out)
     return out
