@@ -216,6 +216,7 @@ def _render(plan: _Plan, row0, col0, nrows, ncols, *, with_layers=True):
     zones[tributary] = 4
     zones[tributary & (d_trib <= v["tributary_profile"][3])] = 2
     zones[streams] = 1
+    # A second, standardised noise field (standard deviation about 1) for wetness.
     wet = fbm_grid(xs, ys, plan.soil_octaves, plan.soil_seeds)
     sigma = plan.sigma
     upland = zones == 0
@@ -392,7 +393,8 @@ def make_landscape(
     cellsize : float, default 10.0
         Cell size in metres (square cells).
     random_state : int, numpy Generator or None, default 0
-        Seed. The same seed and parameters give byte-identical arrays.
+        Seed. The same seed and parameters give byte-identical arrays. A
+        Generator or None draws a seed, which is recorded in ``params``.
     relief_m : float, default 300.0
         Height range of the upland above the valley shoulders (m); the fractal
         relief has a standard deviation of about ``relief_m / 4``.
@@ -415,7 +417,7 @@ def make_landscape(
     origin : (float, float)
         World coordinates of the upper-left grid corner (CRS units).
     crs : str or CRS, default "EPSG:32631"
-        Any projected CRS in metres.
+        Any projected CRS with metre units; it only labels the invented grid.
     window : rasterio.windows.Window, optional
         Compute only this window of the landscape; the result equals the same
         cells of the whole landscape exactly.
@@ -447,16 +449,24 @@ def make_landscape(
     1988). Halving the cell size at the same extent adds one finer octave and
     leaves the others unchanged.
 
-    *Valley.* The main river follows a sum of sinusoids across the longer grid
-    side; its floor falls linearly downstream, so every channel cell is no higher
-    than the one upstream. The cross-section is a flat bed, a bank, a floodplain
-    and ``n_terraces`` benches sloping gently to the river, then the valley walls;
-    the upland relief (always >= 0 above the shoulders) fades in beyond them.
-    Tributary valleys are V-shaped cuts whose floor falls towards the confluence,
-    where it meets the main floor. Distances to the channel lines are exact
-    point-to-segment distances; cells beyond a channel's reach use a constant
-    (the valley surface does not change there), so the edge rule is simply that
-    the landscape continues past the grid.
+    *Valley.* The main river follows a sum of sinusoids along the longer grid
+    side (its slope against the axis is at most 0.4). Its floor falls linearly
+    with the distance along the axis, and the bed (cells within 0.75 cells or
+    3 m of the centre line) is exactly at the floor, so each channel cell is no
+    higher than the one before it downstream. The cross-section is the bed, a
+    2 m bank, a floodplain and ``n_terraces`` benches sloping gently to the river,
+    then the valley walls up to ``valley_depth_m``; the upland (relief + 2 sigma,
+    softly kept within [0, 5 sigma], so never below the shoulders) fades in
+    beyond them. Away from tributaries every cell is therefore at least as high
+    as the valley profile at its distance from the channel. Tributaries leave at 35-55 degrees
+    upstream and are V-shaped cuts (side slope 0.5) whose floor, a running
+    minimum of the surface along their course less half the valley depth, falls
+    towards the confluence where it meets the main floor; the DEM takes the lower
+    of the main and tributary surfaces outside the main bed. Distances to the
+    channel lines are exact point-to-segment distances, found through a bucket
+    grid of segments; beyond a channel's reach its surface no longer changes (or,
+    for tributaries, is provably above the main surface), so windows need no halo
+    and the landscape simply continues past the grid edges.
 
     *Soil.* Channel and floodplain: alluvium (peat in wet hollows of the
     floodplain); terraces: terrace gravel; valley sides: loam; upland: stony
