@@ -406,6 +406,30 @@ def _swap_into_place(staging: Path, target: Path):
         shutil.rmtree(old, ignore_errors=True)
 
 
+@contextlib.contextmanager
+def _convergence_notes(log, what):
+    """Count non-convergence warnings of fits in this process into one log line.
+
+    Other warnings are shown as usual. (Fits in worker processes warn there.)
+    """
+    import warnings
+
+    from sklearn.exceptions import ConvergenceWarning
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", ConvergenceWarning)
+        yield
+    n = 0
+    for w in caught:
+        if issubclass(w.category, ConvergenceWarning):
+            n += 1
+        else:
+            warnings.showwarning(w.message, w.category, w.filename, w.lineno)
+    if n:
+        log(f"{what}: {n} fit(s) stopped at their iteration limit before converging; raise max_iter "
+            "(or tol) in the learner's [learners.<name>] table")
+
+
 def _staging_dir(parent: Path, prefix: str) -> Path:
     """A fresh hidden folder in ``parent`` with the usual permissions (mkdtemp gives 0700)."""
     folder = Path(tempfile.mkdtemp(prefix=prefix, dir=parent))
@@ -509,7 +533,7 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
                 f"{int((table['label'] == 0).sum())} background cells, {len(features)} features")
         factories = _learner_factories(exp, categorical, seed)
         ev = exp["evaluation"]
-        with log.stage("cross-validation"):
+        with log.stage("cross-validation"), _convergence_notes(log, "cross-validation"):
             with _progress(len(factories) * int(table["fold"].nunique()), "cross-validation", quiet) as bar:
                 result = cross_validate(table, features=features, categorical=categorical, learners=factories,
                                         fold_column="fold", random_state=seed, zone_targets=ev["zone_targets"],
@@ -518,14 +542,15 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
             write_crossval(result, staging)
             best = result.summary.iloc[0]
             log(f"best learner by mean fold AUC: {best['learner']} ({best['auc_mean']:.3f})")
-        with log.stage("models"):
+        with log.stage("models"), _convergence_notes(log, "refit"):
             data_hash = file_digest(staging / "samples" / "samples.parquet")
             X, y, w = table[features], table["label"].to_numpy(), table["weight"].to_numpy()
             rows = result.summary.set_index("learner")
             with _progress(len(factories), "refit on all samples", quiet) as bar:
                 for lname, factory in factories.items():
                     t0 = time.perf_counter()
-                    estimator = fit_learner(factory(), X, y, sample_weight=w)
+                    # one fit at a time here, so a learner may use every job (the forest's trees)
+                    estimator = fit_learner(factory(n_jobs=n_jobs), X, y, sample_weight=w)
                     save_model(estimator, model_staging, lname, features=features, categorical=categorical,
                                grid=grid, training_data_sha256=data_hash,
                                settings={"learner": lname, "seed": seed,

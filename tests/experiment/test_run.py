@@ -6,7 +6,9 @@ module with the demo builder, and small learner settings so a run takes seconds.
 
 import hashlib
 import json
+import re
 import zipfile
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -275,3 +277,18 @@ def test_load_model_refuses_tampered_or_untrusted_files(tmp_path):
     odd = save_model(_Opaque(), tmp_path, "odd", features=[])
     with pytest.raises(InputError, match=r"outside the trusted set \(.*_Opaque"):
         load_model(odd.card_path)
+
+
+def test_example_experiments_load_and_every_option_is_shown():
+    from mlsites.experiment import SCHEMA
+
+    folder = Path(__file__).resolve().parents[2] / "experiments"
+    for name in ("demo", "demo_variant", "every_option"):
+        exp = load_experiment(folder / f"{name}.toml")
+        assert exp.name == name
+    assert load_experiment(folder / "demo_variant.toml").sources[0].name == "demo.toml"
+    text = (folder / "every_option.toml").read_text()
+    # every key of every section appears as an active or commented-out example line
+    keys = [k for section in SCHEMA.values() for k in section] + ["extends", "use", "kind", "band"]
+    missing = [k for k in keys if not re.search(rf"^#? ?{k} =|[{{,] {k} =", text, flags=re.M)]
+    assert missing == []

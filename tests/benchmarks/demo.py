@@ -1,0 +1,91 @@
+"""Wall time and memory of the bundled demo experiment (a benchmark, not a test).
+
+Target: ``mlsites run experiments/demo.toml`` with all five learners finishes in
+under 3 minutes on 2 cores and under 2 GB of memory, from scratch (``--fresh``:
+terrain layers and samples are recomputed, not taken from the cache).
+Run: ``python tests/benchmarks/demo.py [--jobs N]``.
+
+Prints one JSON line: ``seconds`` (wall time of the whole command, interpreter
+start included), ``peak_mb`` (largest resident set of any finished child process,
+``getrusage(RUSAGE_CHILDREN)``), ``peak_tree_mb`` (largest sum of resident sets
+over the command and its worker processes, sampled every 0.1 s from /proc, so a
+short spike between samples can be missed), the ratios to the targets (below 1
+meets them), the seconds per stage from the run's manifest and the CPU count.
+"""
+
+import argparse
+import json
+import os
+import resource
+import subprocess
+import sys
+import threading
+import time
+from pathlib import Path
+
+TARGET_SECONDS = 180.0
+TARGET_MB = 2048.0
+ROOT = Path(__file__).resolve().parents[2]
+
+
+def _tree_rss_mb(pid):
+    """Sum of VmRSS over ``pid`` and its descendants (Linux /proc), in MB."""
+    children = {}
+    for entry in Path("/proc").iterdir():
+        if entry.name.isdigit():
+            try:
+                fields = (entry / "stat").read_text().rsplit(")", 1)[1].split()
+                children.setdefault(int(fields[1]), []).append(int(entry.name))
+            except (OSError, IndexError):
+                continue
+    total, todo = 0.0, [pid]
+    while todo:
+        p = todo.pop()
+        todo += children.get(p, [])
+        try:
+            for line in Path(f"/proc/{p}/status").read_text().splitlines():
+                if line.startswith("VmRSS:"):
+                    total += int(line.split()[1]) / 1024.0
+        except OSError:
+            continue
+    return total
+
+
+def main():
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--jobs", type=int, default=None, help="passed to mlsites run --jobs")
+    args = parser.parse_args()
+    cmd = [sys.executable, "-m", "mlsites.cli", "run", str(ROOT / "experiments" / "demo.toml"),
+           "--fresh", "--quiet", "--name", "bench"]
+    if args.jobs:
+        cmd += ["--jobs", str(args.jobs)]
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join(filter(None, [str(ROOT), os.environ.get("PYTHONPATH")])))
+    peak_tree = [0.0]
+    t0 = time.perf_counter()
+    proc = subprocess.Popen(cmd, env=env, stderr=subprocess.PIPE, text=True)
+
+    def watch():
+        while proc.poll() is None:
+            peak_tree[0] = max(peak_tree[0], _tree_rss_mb(proc.pid))
+            time.sleep(0.1)
+
+    watcher = threading.Thread(target=watch, daemon=True)
+    watcher.start()
+    _, stderr = proc.communicate()
+    seconds = time.perf_counter() - t0
+    watcher.join()
+    if proc.returncode != 0:
+        sys.exit(f"demo run failed with status {proc.returncode}:\n{stderr[-2000:]}")
+    peak_mb = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024.0
+    manifest = json.loads((ROOT / "runs" / "bench" / "manifest.json").read_text())
+    print(json.dumps({
+        "benchmark": "demo experiment, all five learners, --fresh",
+        "seconds": round(seconds, 1), "peak_mb": round(peak_mb, 1), "peak_tree_mb": round(peak_tree[0], 1),
+        "seconds_ratio": round(seconds / TARGET_SECONDS, 3),
+        "memory_ratio": round(max(peak_mb, peak_tree[0]) / TARGET_MB, 3),
+        "stages": manifest["seconds"], "learners": manifest["learners"], "cpu_count": os.cpu_count(),
+    }))
+
+
+if __name__ == "__main__":
+    main()
