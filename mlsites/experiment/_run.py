@@ -387,8 +387,13 @@ def _learner_factories(exp, categorical, seed):
     return factories
 
 
+def _samples_only(run_dir: Path) -> bool:
+    """True for a run folder holding only what ``mlsites sample`` wrote (no finished run)."""
+    return run_dir.is_dir() and [p.name for p in run_dir.iterdir()] == ["samples"]
+
+
 def _reserve(target: Path, fresh: bool, what: str, name: str):
-    if target.exists() and not fresh:
+    if target.exists() and not fresh and not (what == "output folder" and _samples_only(target)):
         raise OutputExistsError(
             f"{target}: the {what} of a run named {name!r} exists already; use --fresh to replace it "
             f"or --name NEW_NAME to keep it"
@@ -511,6 +516,8 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
     _reserve(models_dir, fresh, "model folder", name)
     seed = exp["study"]["seed"]
     log(f"experiment {exp.name} ({exp.path.name}), run {name}, seed {seed}")
+    if _samples_only(run_dir) and not fresh:
+        log(f"{run_dir} holds only a samples/ folder from `mlsites sample`; the run replaces it")
     with log.stage("checks"):
         grid = read_grid(exp["study"]["dem"])
         check_input_layers(exp, grid, log)

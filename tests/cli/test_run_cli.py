@@ -87,3 +87,23 @@ def test_sample_command_writes_the_sample_folder_once(tmp_path, data):
     out = tmp_path / "elsewhere"
     assert invoke("sample", exp, "--quiet", "--out", out).exit_code == 0
     assert (out / "samples.parquet").read_bytes() == (folder / "samples.parquet").read_bytes()
+    # a run folder holding only these samples is not a finished run: `run` may take it over
+    before = (folder / "samples.parquet").read_bytes()
+    result = invoke("run", exp, "--jobs", 1)
+    assert result.exit_code == 0, result.output
+    assert "only a samples/ folder" in result.stderr
+    assert (folder / "samples.parquet").read_bytes() == before  # same cached table
+    assert (folder.parent / "manifest.json").is_file()
+    assert_user_error(invoke("run", exp, "--quiet"), "exists already")
+
+
+def test_demo_folder_is_laid_out_for_the_demo_experiment(tmp_path):
+    from mlsites.experiment import load_experiment
+    from mlsites.experiment._demo import DEMO_FILES, prepare_demo_folder
+
+    experiment = prepare_demo_folder(tmp_path / "demo_run")
+    exp = load_experiment(experiment)
+    # every input path of the copied experiment resolves inside the demo folder
+    assert exp["study"]["dem"] == str((tmp_path / "demo_run" / "demo_data" / "dem.tif").resolve())
+    assert all((tmp_path / "demo_run" / "demo_data" / f).is_file() for f in DEMO_FILES)
+    assert exp["outputs"]["runs_dir"] == str((tmp_path / "demo_run" / "runs").resolve())

@@ -92,7 +92,8 @@ def leftovers(folder):
 def test_same_experiment_twice_gives_identical_metrics_files(tmp_path, data):
     exp = write_experiment(tmp_path, data)
     first = run_experiment(exp, name="first", quiet=True, n_jobs=1)
-    second = run_experiment(exp, name="second", quiet=True, n_jobs=1)
+    # the second run also fits in two worker processes: results must not depend on it
+    second = run_experiment(exp, name="second", quiet=True, n_jobs=2)
     for fname in RUN_FILES:
         assert (first.run_dir / fname).is_file(), fname
     for fname in METRIC_FILES:
@@ -213,6 +214,14 @@ def test_layer_in_another_crs_is_aligned_and_logged(tmp_path, data):
     status = check_input_layers(exp, read_grid(data / "dem.tif"), lines.append)
     assert status == {"soil": "aligned"}
     assert len(lines) == 1 and lines[0].startswith("aligned soil from EPSG:32632") and "(nearest)" in lines[0]
+
+
+def test_run_log_says_which_layer_was_aligned(tmp_path, data):
+    soil = _reprojected(data / "soil.tif", tmp_path / "soil_32632.tif")
+    exp = write_experiment(tmp_path, data, soil=str(tmp_path / soil), use=["fuzzy"])
+    result = run_experiment(exp, quiet=True, n_jobs=1)
+    log = (result.run_dir / "run.log").read_text()
+    assert "aligned soil from EPSG:32632" in log
 
 
 def test_categorical_layer_declared_continuous_is_refused(tmp_path, data):
