@@ -57,17 +57,20 @@ def _atan2_deg_row(y, x, out):
         ax = abs(x[c])
         ay = abs(y[c])
         swap = ay > ax
-        # np.true_divide: numba's "/" checks for zero and may raise, and that
-        # branch alone stops the loop from vectorising.
-        t = np.true_divide(ax, ay) if swap else np.true_divide(ay, ax)  # [0, 1] or NaN
-        t = 0.0 if ax + ay == 0.0 else t
-        big = t > 0.66
-        u = np.true_divide(t - 1.0, t + 1.0) if big else t
+        big_side = ay if swap else ax  # NaN if x is NaN (the comparison is False)
+        small_side = ax if swap else ay
+        # reduce atan(small/big) in [0, pi/4] to |u| <= 0.66 with one division;
+        # np.true_divide, unlike "/", has no zero check whose branch would stop
+        # the loop from vectorising
+        shifted = small_side > 0.66 * big_side  # then atan = pi/4 + atan(u)
+        u = np.true_divide(small_side - big_side if shifted else small_side,
+                           small_side + big_side if shifted else big_side)
+        u = 0.0 if big_side == 0.0 else u
         z = u * u
         num = (((_ATAN_P[0] * z + _ATAN_P[1]) * z + _ATAN_P[2]) * z + _ATAN_P[3]) * z + _ATAN_P[4]
         den = ((((z + _ATAN_Q[0]) * z + _ATAN_Q[1]) * z + _ATAN_Q[2]) * z + _ATAN_Q[3]) * z + _ATAN_Q[4]
         a = u + u * np.true_divide(z * num, den)
-        a = _QUARTER_PI + (a + 0.5 * _ATAN_MOREBITS) if big else a
+        a = _QUARTER_PI + (a + 0.5 * _ATAN_MOREBITS) if shifted else a
         a = _HALF_PI - a if swap else a
         a = math.pi - a if x[c] < 0.0 else a
         out[c] = _RAD_TO_DEG * (-a if y[c] < 0.0 else a)
@@ -101,10 +104,11 @@ def _new_layer(dem):
 
 
 @ngjit
-def _horn_row(dem, dx, dy, r, east, north):
+def _horn_row(dem, dx, dy, r, east, north, grad):
     """Downslope vector (-p, -q) of Horn's (1981) gradient for interior row ``r``.
 
-    Fills ``east[c]`` and ``north[c]`` for c = 1 .. n_cols-2 (m/m).
+    Fills ``east[c]``, ``north[c]`` and the magnitude ``grad[c]`` for
+    c = 1 .. n_cols-2 (m/m).
     """
     dxn, dxc, dxs, gap_n, gap_s = _row_spacing(dx, dy, r)
     kn, kc, ks = 0.125 / dxn, 0.25 / dxc, 0.125 / dxs
@@ -115,8 +119,11 @@ def _horn_row(dem, dx, dy, r, east, north):
         g, h, i = np.float64(dem[r + 1, c - 1]), np.float64(dem[r + 1, c]), np.float64(dem[r + 1, c + 1])
         # (e - e) is 0 for valid e and NaN for nodata: Horn ignores e but the
         # strict edge rule needs all nine cells.
-        east[c] = kn * (a - cc) + kc * (d - f) + ks * (g - i) + (e - e)
-        north[c] = ky * ((g + 2.0 * h + i) - (a + 2.0 * b + cc))
+        p_east = kn * (a - cc) + kc * (d - f) + ks * (g - i) + (e - e)
+        q_north = ky * ((g + 2.0 * h + i) - (a + 2.0 * b + cc))
+        east[c] = p_east
+        north[c] = q_north
+        grad[c] = math.sqrt(p_east * p_east + q_north * q_north)
 
 
 @ngjit
@@ -130,9 +137,7 @@ def _horn_layers_row(dem, dx, dy, r, flat_tol, slope_row, aspect_row, percent):
     east = np.empty(n_cols)
     north = np.empty(n_cols)
     grad = np.empty(n_cols)
-    _horn_row(dem, dx, dy, r, east, north)
-    for c in range(1, n_cols - 1):
-        grad[c] = math.sqrt(east[c] * east[c] + north[c] * north[c])
+    _horn_row(dem, dx, dy, r, east, north, grad)
     if aspect_row.shape[0] > 0:
         _atan2_deg_row(east[1:-1], north[1:-1], aspect_row[1:-1])
         for c in range(1, n_cols - 1):
@@ -154,12 +159,12 @@ def _aspect_component_row(dem, dx, dy, r, flat_tol, north_component, out_row):
     n_cols = dem.shape[1]
     east = np.empty(n_cols)
     north = np.empty(n_cols)
-    _horn_row(dem, dx, dy, r, east, north)
+    grad = np.empty(n_cols)
+    _horn_row(dem, dx, dy, r, east, north, grad)
     comp = north if north_component else east
     for c in range(1, n_cols - 1):
-        grad = math.sqrt(east[c] * east[c] + north[c] * north[c])
         # flat: comp * 0 is 0 for valid cells and still NaN for nodata
-        out_row[c] = comp[c] * (0.0 if grad <= flat_tol else 1.0 / grad)
+        out_row[c] = comp[c] * (0.0 if grad[c] <= flat_tol else 1.0 / grad[c])
 
 
 # Modes of _horn_kernel; the wrappers pass one of these.
