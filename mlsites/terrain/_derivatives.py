@@ -671,11 +671,11 @@ def tpi(dem, cellsize, *, radius, inner_radius=0.0):
     arr, dx, dy = _prepare(dem, cellsize)
     outer = _check_radius(radius, "radius")
     inner = _check_radius(inner_radius, "inner_radius")
-    smallest = np.minimum(dx, dy)
-    if outer < smallest.max() * (1.0 - _RADIUS_SLACK):
+    one_cell = float(np.minimum(dx, dy).max())
+    if outer < one_cell * (1.0 - _RADIUS_SLACK):
         raise InputError(
-            f"radius is {outer!r} m, smaller than one cell ({smallest.max()!r} m); the ring "
-            f"would hold no cell. Use radius >= {smallest.max()!r} m."
+            f"radius is {outer!r} m, smaller than one cell ({one_cell!r} m); the ring "
+            f"would hold no cell. Use radius >= {one_cell!r} m."
         )
     if inner > outer:
         raise InputError(
@@ -688,14 +688,9 @@ def tpi(dem, cellsize, *, radius, inner_radius=0.0):
         row = int(np.flatnonzero(n_cells == 0)[0])
         raise InputError(
             f"the ring {inner!r} m <= d <= {outer!r} m holds no cell centre at row {row} "
-            f"(dx={dx[row]!r} m, dy={dy[row]!r} m); widen the ring."
+            f"(dx={float(dx[row])!r} m, dy={float(dy[row])!r} m); widen the ring."
         )
-    # Subtracting a typical elevation keeps the prefix sums small and precise; a
-    # coarse sample of the DEM is enough to find one.
-    sample = arr[:: max(1, arr.shape[0] // 64), :: max(1, arr.shape[1] // 64)]
-    sample = sample[np.isfinite(sample)]
-    offset = float(sample.mean()) if sample.size else 0.0
-    return _kernels._tpi_kernel(arr, w_out, w_in, offset)
+    return _kernels._tpi_kernel(arr, w_out, w_in)
 
 
 def _check_radius(value, name):
