@@ -231,8 +231,10 @@ def zone_table(
     # codes run n_zones (top) .. 1 (remainder); reverse so rows go from the top down
     site_w = np.bincount(assign_zones(s, values), weights=sw, minlength=n_zones + 1)[:0:-1]
     land_w = np.bincount(assign_zones(land, values), weights=lw, minlength=n_zones + 1)[:0:-1]
-    site_share = site_w / sw.sum()
-    area_share = land_w / lw.sum()
+    # Divide by the sums of the zone totals themselves: summing the weights in
+    # another order can put a share a few ulps above 1.
+    site_share = np.clip(site_w / site_w.sum(), 0.0, 1.0)
+    area_share = np.clip(land_w / land_w.sum(), 0.0, 1.0)
     cum_site = np.minimum(np.cumsum(site_share), 1.0)
     cum_area = np.minimum(np.cumsum(area_share), 1.0)
     return pd.DataFrame(

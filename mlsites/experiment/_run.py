@@ -39,10 +39,6 @@ _INSPECT_CELLS = 256
 _NAME_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
 #: Sections of the experiment that change the sample table.
 _SAMPLE_SECTIONS = ("study", "terrain", "sites", "sampling", "folds", "inputs", "distances")
-#: Sample weights are rounded to multiples of this (2**-30) so that every partial sum
-#: of them is exact: shares summed in different orders then agree to the last bit
-#: (a share of 1 stays 1), which keeps results independent of summation order.
-WEIGHT_QUANTUM = 2.0 ** -30
 #: Files copied from the sample folder to the top of the run folder.
 _SAMPLE_REPORTS = ("dropped_records.csv", "sampling.json")
 
@@ -130,8 +126,7 @@ def samples_key(exp, hashes=None) -> str:
     """Hash of everything the sample table depends on (settings, file bytes, version)."""
     hashes = _file_hashes(exp) if hashes is None else hashes
     return _digest({"settings": {s: exp[s] for s in _SAMPLE_SECTIONS},
-                    "files": {k: v["sha256"] for k, v in hashes.items()}, "version": __version__,
-                    "weight_quantum": WEIGHT_QUANTUM})[:16]
+                    "files": {k: v["sha256"] for k, v in hashes.items()}, "version": __version__})[:16]
 
 
 # ---------------------------------------------------------------- input checks
@@ -244,7 +239,6 @@ def _cached_samples(exp, cache_dir: Path, *, fresh, quiet, log) -> tuple[Path, s
     staging = _staging_dir(cache_dir, f".samples-{key}.partial-")
     try:
         prepare_samples(exp, staging, cache_dir=cache_dir, fresh=fresh, quiet=quiet, log=log)
-        _round_weights(staging / "samples.parquet")
         old = None
         if folder.exists():
             old = Path(tempfile.mkdtemp(prefix=f".samples-{key}.old-", dir=cache_dir))
@@ -255,14 +249,6 @@ def _cached_samples(exp, cache_dir: Path, *, fresh, quiet, log) -> tuple[Path, s
     finally:
         shutil.rmtree(staging, ignore_errors=True)
     return folder, key, False
-
-
-def _round_weights(parquet: Path):
-    import pandas as pd
-
-    table = pd.read_parquet(parquet)
-    table["weight"] = np.round(table["weight"].to_numpy() / WEIGHT_QUANTUM) * WEIGHT_QUANTUM
-    table.to_parquet(parquet, index=False)
 
 
 def _load_sample_set(folder: Path):

@@ -174,13 +174,13 @@ def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, l
     from mlsites.grid import read_grid
     from mlsites.sampling import (
         balance_weights,
+        check_n_splits,
         extract_values,
         presence_cells,
         read_sites,
         read_valid_mask,
         sample_background,
     )
-    from mlsites.sampling._sites import check_n_splits
 
     log = log or (lambda m: None)
     out_dir = Path(out_dir)

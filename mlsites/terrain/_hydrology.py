@@ -497,6 +497,8 @@ def hydrology_layers(dem, cellsize, *, stream_threshold_km2, epsilon=True, wante
     if not needed:
         return {}
     grids["filled"], scratch, _ = _fill(dem, epsilon)
+    # Drop this frame's reference: a caller that passed a temporary frees the DEM here.
+    del dem
     finish("filled")
     if "direction" in needed:
         grids["direction"] = _direction_into(grids["filled"], dx, dy, scratch)
