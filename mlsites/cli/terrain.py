@@ -1,0 +1,65 @@
+"""``mlsites terrain DEM --out DIR``: one GeoTIFF per terrain layer plus a JSON summary."""
+
+import click
+
+from mlsites.cli.main import handle_errors
+from mlsites.cli.options import echo_unless, overwrite_option, quiet_option
+
+
+def _floats(ctx, param, value):
+    if value is None:
+        return None
+    try:
+        return tuple(float(v) for v in value.replace(",", " ").split())
+    except ValueError:
+        raise click.BadParameter(f"expected numbers separated by commas, got {value!r}") from None
+
+
+def _names(ctx, param, value):
+    return None if value is None else tuple(v for v in value.replace(",", " ").split() if v)
+
+
+def _pairs(ctx, param, values):
+    out = {}
+    for v in values:
+        name, sep, path = v.partition("=")
+        if not sep or not name or not path:
+            raise click.BadParameter(f"expected NAME=PATH, got {v!r}")
+        out[name] = path
+    return out
+
+
+@click.command()
+@click.argument("dem", type=click.Path(dir_okay=False))
+@click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Output folder.")
+@click.option("--layers", callback=_names, help="Comma-separated layer names (default: the standard set).")
+@click.option("--tpi-radii", callback=_floats, help="TPI disc radii in metres, comma-separated (default 100,500).")
+@click.option("--landform-lookup", type=int, default=20, show_default=True, help="Geomorphon lookup distance in cells.")
+@click.option("--landform-flatness", type=float, default=1.0, show_default=True, help="Geomorphon flatness threshold in degrees.")
+@click.option("--stream-threshold", type=float, default=0.5, show_default=True, help="Contributing area of a stream cell, km2.")
+@click.option("--distance-to", "vectors", multiple=True, callback=_pairs, metavar="NAME=PATH",
+              help="Vector layer turned into a distance_NAME layer (repeatable).")
+@click.option("--stream-lines", type=click.Path(dir_okay=False), help="Measure stream_distance to these lines instead of DEM-derived streams.")
+@click.option("--block-rows", type=int, help="Rows per processing window (default: about 8 M cells a window).")
+@overwrite_option
+@quiet_option
+@handle_errors
+def terrain(dem, out_dir, layers, tpi_radii, landform_lookup, landform_flatness, stream_threshold,
+            vectors, stream_lines, block_rows, overwrite, quiet):
+    """Derive terrain layers from DEM into OUT as LAYER.tif plus terrain.json."""
+    from mlsites.terrain import DEFAULT_LAYERS, TerrainSettings, compute_terrain
+
+    settings = TerrainSettings(
+        layers=layers or DEFAULT_LAYERS,
+        tpi_radii_m=tpi_radii or (100.0, 500.0),
+        landform_lookup_cells=landform_lookup,
+        landform_flatness_deg=landform_flatness,
+        stream_threshold_km2=stream_threshold,
+        vectors=vectors,
+        stream_vector=stream_lines,
+        block_rows=block_rows,
+    )
+    summary = compute_terrain(dem, out_dir, settings, overwrite=overwrite, quiet=quiet,
+                              log=echo_unless(quiet))
+    if not quiet:
+        click.echo(f"wrote {len(summary['layers'])} layers to {out_dir} in {summary['seconds']:.1f} s", err=True)

@@ -1,0 +1,147 @@
+"""Terrain benchmark: kernel throughput, ratios to gdaldem, whole run time, peak memory.
+
+Prints one JSON line. Everything is measured side by side in the same run on the same
+machine, so the ratios are meaningful even on a noisy machine; absolute seconds are not.
+
+    python3 tests/benchmarks/terrain.py [--size 4000] [--big 20000] [--workdir DIR]
+
+Targets (issue "terrain stage"): slope+aspect >= 10x gdaldem slope throughput on
+2 cores; geomorphons (lookup 20 cells) >= 2 M cells/s; whole default layer set on the
+4000 x 4000 DEM < 60 s; local layers at 20000 x 20000 peak RSS < 1.5 GB; hydrology
+<= 16 bytes per cell at peak (measured here on the 4000 x 4000 DEM).
+"""
+
+import argparse
+import json
+import os
+import resource
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+LOCAL = "slope,aspect,northness,eastness,tpi,ruggedness,roughness,profile_curvature,plan_curvature,landform"
+HYDRO = "flow_direction,flow_accumulation,streams,stream_distance,height_above_drainage"
+
+
+def _best_of(fn, repeat=3):
+    best = float("inf")
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        fn()
+        best = min(best, time.perf_counter() - t0)
+    return best
+
+
+def _gdaldem_seconds(mode, dem, out, repeat=3):
+    cmd = ["gdaldem", mode, str(dem), str(out), "-q"]
+    if mode == "aspect":
+        cmd.insert(-1, "-zero_for_flat")
+    return _best_of(lambda: subprocess.run(cmd, check=True), repeat)
+
+
+def _child_peak_rss_mb(cmd):
+    """Run ``cmd`` in a fresh process and return its peak resident memory in MB."""
+    code = (
+        "import resource, subprocess, sys, json;"
+        "r = subprocess.run(sys.argv[1:]);"
+        "print(json.dumps([r.returncode, resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss]))"
+    )
+    out = subprocess.run([sys.executable, "-c", code, *cmd], capture_output=True, text=True, check=True)
+    rc, kb = json.loads(out.stdout.strip().splitlines()[-1])
+    if rc != 0:
+        raise RuntimeError(f"{cmd} failed: {out.stderr[-2000:]}")
+    return kb / 1024.0
+
+
+def main():
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--size", type=int, default=4000)
+    ap.add_argument("--big", type=int, default=20000, help="0 skips the large-DEM memory run")
+    ap.add_argument("--workdir", default=None)
+    args = ap.parse_args()
+
+    from mlsites import terrain
+    from mlsites.grid import read_array
+    from mlsites.synthetic import write_landscape_dem
+
+    work = Path(args.workdir or tempfile.mkdtemp(prefix="mlsites-bench-"))
+    work.mkdir(parents=True, exist_ok=True)
+    n = args.size
+    dem_path = work / f"dem_{n}.tif"
+    if not dem_path.exists():
+        write_landscape_dem(dem_path, (n, n), cellsize=10.0, random_state=1)
+    dem = read_array(dem_path)
+    cells = dem.size
+    cs = 10.0
+
+    # Warm the numba caches on a small array so compile time is not measured.
+    small = dem[:64, :64]
+    for f in (lambda a: terrain.slope_aspect(a, cs), lambda a: terrain.tpi(a, cs, radius=100.0),
+              lambda a: terrain.geomorphons(a, cs, lookup_cells=20), lambda a: terrain.ruggedness(a),
+              lambda a: terrain.plan_curvature(a, cs), lambda a: terrain.hydrology_layers(a, cs, stream_threshold_km2=0.5)):
+        f(small)
+
+    kernels = {
+        "slope_aspect": lambda: terrain.slope_aspect(dem, cs),
+        "slope": lambda: terrain.slope(dem, cs),
+        "tpi_100m": lambda: terrain.tpi(dem, cs, radius=100.0),
+        "tpi_500m": lambda: terrain.tpi(dem, cs, radius=500.0),
+        "ruggedness": lambda: terrain.ruggedness(dem),
+        "roughness": lambda: terrain.roughness(dem),
+        "profile_curvature": lambda: terrain.profile_curvature(dem, cs),
+        "landform_L20": lambda: terrain.geomorphons(dem, cs, lookup_cells=20),
+    }
+    cps = {k: cells / _best_of(f) for k, f in kernels.items()}
+
+    hydro_t0 = time.perf_counter()
+    terrain.hydrology_layers(dem, cs, stream_threshold_km2=0.5)
+    cps["hydrology_chain"] = cells / (time.perf_counter() - hydro_t0)
+
+    result = {"benchmark": "terrain", "dem_cells": cells, "cores": os.cpu_count(),
+              "cells_per_second": {k: round(v) for k, v in cps.items()}}
+
+    if shutil.which("gdaldem"):
+        g = {m: cells / _gdaldem_seconds(m, dem_path, work / f"gdal_{m}.tif") for m in ("slope", "aspect", "TPI")}
+        result["gdaldem_cells_per_second"] = {k: round(v) for k, v in g.items()}
+        result["ratio_slope_aspect_to_gdaldem_slope"] = round(cps["slope_aspect"] / g["slope"], 2)
+        result["ratio_slope_to_gdaldem_slope"] = round(cps["slope"] / g["slope"], 2)
+        result["ratio_slope_aspect_to_gdaldem_aspect"] = round(cps["slope_aspect"] / g["aspect"], 2)
+        result["ratio_tpi_100m_to_gdaldem_tpi_3x3"] = round(cps["tpi_100m"] / g["TPI"], 2)
+    result["ratio_landform_to_2M_target"] = round(cps["landform_L20"] / 2e6, 2)
+
+    # The whole default layer set through the command line, as a user runs it.
+    out = work / "layers"
+    t0 = time.perf_counter()
+    peak = _child_peak_rss_mb([sys.executable, "-m", "mlsites.cli", "terrain", str(dem_path), "--out", str(out),
+                               "--overwrite", "--quiet"])
+    whole = time.perf_counter() - t0
+    result["default_set_seconds"] = round(whole, 1)
+    result["ratio_default_set_to_60s_target"] = round(whole / 60.0, 3)
+    result["default_set_peak_rss_mb"] = round(peak)
+    hydro_peak = _child_peak_rss_mb([sys.executable, "-m", "mlsites.cli", "terrain", str(dem_path), "--out",
+                                     str(work / "hydro"), "--layers", HYDRO, "--overwrite", "--quiet"])
+    base = _child_peak_rss_mb([sys.executable, "-c", "import mlsites.terrain, mlsites.cli.terrain, rasterio"])
+    result["hydrology_bytes_per_cell"] = round((hydro_peak - base) * 2**20 / cells, 2)
+    result["ratio_hydrology_to_16_bytes_target"] = round(result["hydrology_bytes_per_cell"] / 16.0, 3)
+
+    if args.big:
+        big = work / f"dem_{args.big}.tif"
+        if not big.exists():
+            write_landscape_dem(big, (args.big, args.big), cellsize=30.0, random_state=2)
+        t0 = time.perf_counter()
+        peak_big = _child_peak_rss_mb([sys.executable, "-m", "mlsites.cli", "terrain", str(big), "--out",
+                                       str(work / "big"), "--layers", LOCAL, "--overwrite", "--quiet"])
+        result["big_dem_cells"] = args.big**2
+        result["big_local_seconds"] = round(time.perf_counter() - t0, 1)
+        result["big_local_peak_rss_mb"] = round(peak_big)
+        result["ratio_big_peak_to_1536mb_target"] = round(peak_big / 1536.0, 3)
+    print(json.dumps(result))
+
+
+if __name__ == "__main__":
+    main()
