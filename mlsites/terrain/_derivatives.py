@@ -401,7 +401,9 @@ def eastness(dem, cellsize, *, flat_tolerance=1e-12):
 def _curvature(dem, cellsize, flat_tolerance, mode):
     arr, dx, dy = _prepare(dem, cellsize)
     tol = _check_flat_tolerance(flat_tolerance)
-    return _kernels._curvature_kernel(arr, dx, dy, tol, mode)
+    out = np.empty(arr.shape)
+    _kernels._curvature_kernel(arr, dx, dy, tol, mode, out)
+    return out
 
 
 def profile_curvature(dem, cellsize, *, flat_tolerance=1e-12):
@@ -502,7 +504,10 @@ def total_curvature(dem, cellsize):
 
 
 def _window3(dem, mode):
-    return _kernels._window3_kernel(_check_dem(dem), mode)
+    arr = _check_dem(dem)
+    out = np.empty(arr.shape)
+    _kernels._window3_kernel(arr, mode, out)
+    return out
 
 
 def tpi3(dem):
@@ -690,7 +695,12 @@ def tpi(dem, cellsize, *, radius, inner_radius=0.0):
             f"the ring {inner!r} m <= d <= {outer!r} m holds no cell centre at row {row} "
             f"(dx={float(dx[row])!r} m, dy={float(dy[row])!r} m); widen the ring."
         )
-    return _kernels._tpi_kernel(arr, w_out, w_in)
+    pad = max(int(w_out.max()), 0) + 1  # prefix rows are padded to skip edge clamping
+    sums = np.empty((arr.shape[0], arr.shape[1] + 1 + 2 * pad))
+    counts = np.empty_like(sums)
+    out = np.empty(arr.shape)
+    _kernels._tpi_kernel(arr, w_out, w_in, sums, counts, out)
+    return out
 
 
 def _check_radius(value, name):

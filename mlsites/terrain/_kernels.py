@@ -3,8 +3,10 @@
 Kernels see only arrays and scalars: a 2-D elevation array (float32 or float64,
 NaN = nodata, row 0 north) and per-row cell sizes ``dx`` and ``dy`` in metres (one
 value per row, so degree grids whose east-west spacing shrinks with latitude are
-handled). They fill or return float64 arrays of the same shape, and read float32
-input through ``np.float64(...)`` (numba's ``float()`` keeps float32). Validation,
+handled). They fill float64 output arrays that the caller allocates with NumPy
+(which backs large arrays with transparent huge pages, so first touch is cheap),
+and read float32 input through ``np.float64(...)`` (numba's ``float()`` keeps
+float32). Validation,
 dtype handling and documentation live in :mod:`mlsites.terrain._derivatives`.
 
 3x3 window labels (centre ``e``)::
@@ -94,13 +96,6 @@ def _row_spacing(dx, dy, r):
     gap_n = 0.5 * (dy[r - 1] + dy[r])
     gap_s = 0.5 * (dy[r] + dy[r + 1])
     return dx[r - 1], dx[r], dx[r + 1], gap_n, gap_s
-
-
-@ngjit
-def _new_layer(dem):
-    out = np.empty(dem.shape, dtype=np.float64)
-    _nan_border(out)
-    return out
 
 
 @ngjit
@@ -199,14 +194,14 @@ def _horn_kernel(dem, dx, dy, flat_tol, mode, out, out_aspect):
 
 
 @pjit
-def _curvature_kernel(dem, dx, dy, flat_tol, mode):
+def _curvature_kernel(dem, dx, dy, flat_tol, mode, out):
     """Zevenbergen & Thorne (1987) curvature, 1/m, positive convex.
 
     ``mode`` 0 profile, 1 plan, 2 total. Flat cells (|grad| <= flat_tol) get 0 for
     profile and plan.
     """
     n_rows, n_cols = dem.shape
-    out = _new_layer(dem)
+    _nan_border(out)
     for r in prange(1, n_rows - 1):
         dxn, dxc, dxs, gap_n, gap_s = _row_spacing(dx, dy, r)
         gap = gap_n + gap_s
@@ -230,18 +225,17 @@ def _curvature_kernel(dem, dx, dy, flat_tol, mode):
                 out[r, c] = -2.0 * (cd * cg * cg + ce * ch * ch + cf * cg * ch) / g2
             else:
                 out[r, c] = -2.0 * (cd * ch * ch + ce * cg * cg - cf * cg * ch) / g2
-    return out
 
 
 @pjit
-def _window3_kernel(dem, mode):
+def _window3_kernel(dem, mode, out):
     """3x3 statistics of the differences z_k - z_0 over the 8 neighbours.
 
     ``mode`` 0 TPI (z0 - mean of 8), 1 TRI Riley sqrt(sum d^2), 2 mean |d|
     (Wilson), 3 roughness (max - min of all 9 cells).
     """
     n_rows, n_cols = dem.shape
-    out = _new_layer(dem)
+    _nan_border(out)
     for r in prange(1, n_rows - 1):
         for c in range(1, n_cols - 1):
             z0 = np.float64(dem[r, c])
@@ -268,7 +262,6 @@ def _window3_kernel(dem, mode):
             else:
                 # s is NaN if any cell is NaN; min/max may skip NaN, so add 0 * s
                 out[r, c] = hi - lo + 0.0 * s
-    return out
 
 
 @ngjit
@@ -383,9 +376,11 @@ _TPI_STRIPE_COLS = 512  # with a 50-cell reach the ring's stripe of prefix sums 
 
 
 @pjit
-def _tpi_kernel(dem, w_out, w_in):
-    """TPI on the ring given by per-row half-width tables (see :func:`_ring_tables`).
+def _tpi_kernel(dem, w_out, w_in, sums, counts, out):
+    """TPI into ``out`` on the ring given by per-row half-width tables.
 
+    ``w_out``, ``w_in`` come from :func:`_ring_tables`; ``sums`` and ``counts`` are
+    scratch arrays of shape (n_rows, n_cols + 1 + 2 pad), pad > the widest half-width.
     Mean over the valid cells of the ring, NaN if the centre is NaN or no ring cell
     is valid. Cost per cell is O(number of ring rows): each ring row adds a
     difference of two row prefix sums. The sums are of raw elevations, so a cell's
@@ -394,14 +389,10 @@ def _tpi_kernel(dem, w_out, w_in):
     stripes.
     """
     n_rows, n_cols = dem.shape
-    pad = max(int(w_out.max()), 0) + 1
-    sums = np.empty((n_rows, n_cols + 1 + 2 * pad), dtype=np.float64)
-    counts = np.empty((n_rows, n_cols + 1 + 2 * pad), dtype=np.float64)
+    pad = (sums.shape[1] - n_cols - 1) // 2
     for r in prange(n_rows):
         _row_prefix_sums(dem, pad, r, sums, counts)
-    out = np.empty((n_rows, n_cols), dtype=np.float64)
     n_stripes = (n_cols + _TPI_STRIPE_COLS - 1) // _TPI_STRIPE_COLS
     for s in prange(n_stripes):
         c0 = np.int64(s) * _TPI_STRIPE_COLS
         _tpi_stripe(dem, sums, counts, w_out, w_in, pad, c0, min(c0 + _TPI_STRIPE_COLS, n_cols), out)
-    return out
