@@ -6,8 +6,8 @@ value per row, so degree grids whose east-west spacing shrinks with latitude are
 handled). They fill float64 output arrays that the caller allocates with NumPy
 (which backs large arrays with transparent huge pages, so first touch is cheap),
 and read float32 input through ``np.float64(...)`` (numba's ``float()`` keeps
-float32). Validation,
-dtype handling and documentation live in :mod:`mlsites.terrain._derivatives`.
+float32). Validation, dtype handling and documentation live in
+:mod:`mlsites.terrain._derivatives`.
 
 3x3 window labels (centre ``e``)::
 
@@ -159,7 +159,7 @@ def _aspect_component_row(dem, dx, dy, r, flat_tol, north_component, out_row):
     comp = north if north_component else east
     for c in range(1, n_cols - 1):
         # flat: comp * 0 is 0 for valid cells and still NaN for nodata
-        out_row[c] = comp[c] * (0.0 if grad[c] <= flat_tol else 1.0 / grad[c])
+        out_row[c] = comp[c] * (0.0 if grad[c] <= flat_tol else np.true_divide(1.0, grad[c]))
 
 
 # Modes of _horn_kernel; the wrappers pass one of these.
