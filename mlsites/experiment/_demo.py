@@ -65,7 +65,7 @@ def write_demo_data(directory, *, shape=(600, 600), cellsize: float = 10.0, n_si
     :mod:`mlsites.terrain`; the models never see that surface, only the files.
     """
     from mlsites.synthetic import make_landscape
-    from mlsites.synthetic._virtual_sites import make_virtual_sites
+    from mlsites.synthetic import make_virtual_sites
     from mlsites.terrain import distance_to_cells, northness, slope, tpi
 
     directory = Path(directory)

@@ -8,6 +8,13 @@ from mlsites.synthetic._landscape import (
     make_landscape,
     write_landscape_dem,
 )
+from mlsites.synthetic._virtual_sites import (
+    DEFAULT_PREFERENCE,
+    PHASES,
+    VirtualSites,
+    make_virtual_sites,
+    preference_surface,
+)
 
 __all__ = [
     "SOIL_CLASSES",
@@ -16,4 +23,9 @@ __all__ = [
     "fractal_relief",
     "make_landscape",
     "write_landscape_dem",
+    "DEFAULT_PREFERENCE",
+    "PHASES",
+    "VirtualSites",
+    "make_virtual_sites",
+    "preference_surface",
 ]

@@ -79,15 +79,22 @@ def _atan2_deg_row(y, x, out):
 
 
 @ngjit
-def _nan_border(out):
-    """Set the outermost rows and columns of ``out`` to NaN (strict edge rule)."""
+def _nan_edge_rows(out):
+    """Set the first and last rows of ``out`` to NaN (strict edge rule).
+
+    The first and last columns are set by the row loops: done here, one thread
+    would touch every page of a fresh array and take all its page faults.
+    """
     n_rows, n_cols = out.shape
     for c in range(n_cols):
         out[0, c] = np.nan
         out[n_rows - 1, c] = np.nan
-    for r in range(n_rows):
-        out[r, 0] = np.nan
-        out[r, n_cols - 1] = np.nan
+
+
+@ngjit
+def _nan_row_ends(out, r):
+    out[r, 0] = np.nan
+    out[r, out.shape[1] - 1] = np.nan
 
 
 @ngjit
@@ -178,11 +185,14 @@ def _horn_kernel(dem, dx, dy, flat_tol, mode, out, out_aspect):
     kernel with a mode, rather than one per layer, keeps numba compile time down.
     """
     skip = np.empty(0)
-    _nan_border(out)
+    _nan_edge_rows(out)
     if mode == _HORN_SLOPE_ASPECT:
-        _nan_border(out_aspect)
+        _nan_edge_rows(out_aspect)
     for r in prange(1, dem.shape[0] - 1):
         ri = np.int64(r)  # prange indices may be typed unsigned
+        _nan_row_ends(out, ri)
+        if mode == _HORN_SLOPE_ASPECT:
+            _nan_row_ends(out_aspect, ri)
         if mode == _HORN_SLOPE or mode == _HORN_SLOPE_PERCENT:
             _horn_layers_row(dem, dx, dy, ri, flat_tol, out[r], skip, mode == _HORN_SLOPE_PERCENT)
         elif mode == _HORN_ASPECT:
@@ -201,8 +211,9 @@ def _curvature_kernel(dem, dx, dy, flat_tol, mode, out):
     profile and plan.
     """
     n_rows, n_cols = dem.shape
-    _nan_border(out)
+    _nan_edge_rows(out)
     for r in prange(1, n_rows - 1):
+        _nan_row_ends(out, r)
         dxn, dxc, dxs, gap_n, gap_s = _row_spacing(dx, dy, r)
         gap = gap_n + gap_s
         for c in range(1, n_cols - 1):
@@ -235,8 +246,9 @@ def _window3_kernel(dem, mode, out):
     (Wilson), 3 roughness (max - min of all 9 cells).
     """
     n_rows, n_cols = dem.shape
-    _nan_border(out)
+    _nan_edge_rows(out)
     for r in prange(1, n_rows - 1):
+        _nan_row_ends(out, r)
         for c in range(1, n_cols - 1):
             z0 = np.float64(dem[r, c])
             s = 0.0

@@ -11,7 +11,7 @@ from mlsites.errors import InsufficientDataError, OutputExistsError
 from mlsites.experiment import load_experiment
 from mlsites.experiment._samples import prepare_samples
 from mlsites.grid import GridSpec, write_array
-from mlsites.synthetic._virtual_sites import make_virtual_sites
+from mlsites.synthetic import make_virtual_sites
 
 GRID = GridSpec(rasterio.crs.CRS.from_epsg(32631), from_origin(600000.0, 5500000.0, 10.0, 10.0), 100, 110)
 

@@ -9,7 +9,7 @@ from scipy.spatial import cKDTree
 from sklearn.metrics import roc_auc_score
 
 from mlsites.grid import GridSpec
-from mlsites.synthetic._virtual_sites import PHASES, make_virtual_sites, preference_surface
+from mlsites.synthetic import PHASES, make_virtual_sites, preference_surface
 
 GRID = GridSpec(rasterio.crs.CRS.from_epsg(32631), from_origin(300000.0, 6000000.0, 10.0, 10.0), 150, 140)
 
