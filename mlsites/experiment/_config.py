@@ -18,7 +18,7 @@ from pathlib import Path
 
 from mlsites.errors import ConfigError
 
-__all__ = ["SCHEMA", "Experiment", "load_experiment", "experiment_from_dict"]
+__all__ = ["SCHEMA", "Experiment", "load_experiment", "experiment_from_dict", "experiment_from_flags"]
 
 _ANY = object()
 _NUM = (int, float)
@@ -348,3 +348,57 @@ def load_experiment(path) -> Experiment:
     path = Path(path).resolve()
     data, sources = _read_toml(path, ())
     return experiment_from_dict(data, path=path, text=path.read_text(encoding="utf-8"), sources=sources)
+
+
+#: Command-line flag names of ``mlsites sample`` -> (section, key) of the experiment.
+FLAG_KEYS = {
+    "dem": ("study", "dem"), "seed": ("study", "seed"), "name": ("study", "name"),
+    "sites": ("sites", "path"), "id_field": ("sites", "id_field"), "x_field": ("sites", "x_field"),
+    "y_field": ("sites", "y_field"), "crs": ("sites", "crs"),
+    "terrain_layers": ("terrain", "layers"), "tpi_radii_m": ("terrain", "tpi_radii_m"),
+    "site_buffer_m": ("sampling", "site_buffer_m"), "background_count": ("sampling", "background_count"),
+    "background_fraction": ("sampling", "background_fraction"), "exclusion_m": ("sampling", "exclusion_m"),
+    "survey_areas": ("sampling", "survey_areas"), "survey_mode": ("sampling", "survey_mode"),
+    "effort_field": ("sampling", "effort_field"),
+    "fold_method": ("folds", "method"), "n_splits": ("folds", "n_splits"),
+    "block_size_m": ("folds", "block_size_m"), "buffer_m": ("folds", "buffer_m"),
+    "runs_dir": ("outputs", "runs_dir"),
+}
+
+
+def experiment_from_flags(experiment=None, *, inputs=None, **flags) -> Experiment:
+    """An experiment from command-line flags, optionally over an experiment file.
+
+    Parameters
+    ----------
+    experiment : path-like, optional
+        Experiment file the flags override; without it the flags alone define the
+        study (``dem`` and ``sites`` are then required).
+    inputs : dict of str to (path, kind), optional
+        Extra raster layers.
+    **flags
+        Values keyed as in :data:`FLAG_KEYS`; None means "not given". Relative
+        paths are taken from the working directory, as a shell user expects.
+
+    Returns
+    -------
+    Experiment
+        Validated exactly like a file (all problems reported at once).
+    """
+    if experiment is not None:
+        path = Path(experiment).resolve()
+        data, sources = _read_toml(path, ())
+        text = path.read_text(encoding="utf-8")
+    else:
+        path, data, sources, text = Path.cwd() / "command-line flags", {}, (), ""
+    for flag, value in flags.items():
+        if flag not in FLAG_KEYS:
+            raise ConfigError(f"unknown option {flag!r}")
+        if value is None:
+            continue
+        section, key = FLAG_KEYS[flag]
+        is_path = key in ("dem", "path", "survey_areas", "runs_dir")
+        data.setdefault(section, {})[key] = str(Path(value).resolve()) if is_path else value
+    for name, (p, kind) in (inputs or {}).items():
+        data.setdefault("inputs", {})[name] = {"path": str(Path(p).resolve()), "kind": kind}
+    return experiment_from_dict(data, path=path, text=text, sources=sources)

@@ -285,8 +285,9 @@ def sample_experiment(path, *, out_dir=None, fresh=False, quiet=False, log=None)
 
     Parameters
     ----------
-    path : path-like
-        Experiment TOML file.
+    path : path-like or Experiment
+        Experiment TOML file, or an experiment already built (for example from
+        command-line flags with :func:`experiment_from_flags`).
     out_dir : path-like, optional
         Folder for the sample files (default ``<runs_dir>/<name>/samples``).
     fresh : bool, default False
@@ -308,11 +309,11 @@ def sample_experiment(path, *, out_dir=None, fresh=False, quiet=False, log=None)
     ConfigError, InputError, InsufficientDataError, ...
         Before anything is written to ``out_dir``.
     """
-    from mlsites.experiment._config import load_experiment
+    from mlsites.experiment._config import Experiment, load_experiment
     from mlsites.grid import read_grid
 
     log = _Log(log)
-    exp = load_experiment(path)
+    exp = path if isinstance(path, Experiment) else load_experiment(path)
     runs_dir, _ = output_roots(exp)
     out_dir = Path(out_dir) if out_dir is not None else runs_dir / exp.name / "samples"
     if (out_dir / "samples.parquet").exists() and not fresh:
