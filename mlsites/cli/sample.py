@@ -61,7 +61,8 @@ def sample(experiment, out_dir, inputs, terrain_layers, tpi_radii, fresh, quiet,
         try:
             flags["tpi_radii_m"] = [float(v) for v in tpi_radii.replace(",", " ").split()]
         except ValueError:
-            raise click.BadParameter(f"expected numbers, got {tpi_radii!r}", param_hint="--tpi-radii") from None
+            msg = f"expected numbers separated by commas, got {tpi_radii!r}"
+            raise click.BadParameter(msg, param_hint="--tpi-radii") from None
     if experiment is None:
         # Flags alone: the layer and sample cache lives inside the output folder.
         flags.update(name="samples", runs_dir=out_dir)
