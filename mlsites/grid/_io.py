@@ -240,6 +240,8 @@ class RasterWriter(contextlib.AbstractContextManager):
             compress="deflate",
             predictor=3 if self.dtype.kind == "f" else 2,
             BIGTIFF="IF_SAFER",
+            # Compress tiles on every core (GDAL GTiff creation option).
+            NUM_THREADS="ALL_CPUS",
         )
         # GeoTIFF tiles must be multiples of 16; 256 is GDAL's usual choice.
         profile.update(tiled=True, blockxsize=256, blockysize=256)
