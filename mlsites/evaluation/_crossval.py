@@ -9,7 +9,7 @@ out-of-fold scores.
 """
 
 import os
-from collections.abc import Callable, Mapping
+from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
 

@@ -13,6 +13,7 @@ from types import MappingProxyType
 import numpy as np
 
 from mlsites._numba import pjit, prange
+from mlsites._validation import check_cell_pair
 from mlsites.errors import InputError
 
 __all__ = ["geomorphons", "LANDFORM_CLASSES"]
@@ -142,26 +143,7 @@ def _geomorphons_kernel(dem, inv_dist, first_step, flatness_rad, lut):
 
 
 def _check_cellsize(cellsize):
-    """Return (dx, dy) as positive floats from a number or a pair."""
-    if isinstance(cellsize, numbers.Real):
-        pair = (cellsize, cellsize)
-    else:
-        try:
-            pair = tuple(cellsize)
-        except TypeError:
-            pair = ()
-        if len(pair) != 2 or not all(isinstance(v, numbers.Real) for v in pair):
-            raise InputError(
-                f"cellsize={cellsize!r} is not a number or a (dx, dy) pair; pass the "
-                "cell size in metres, e.g. 30.0 or (30.0, 25.0)."
-            )
-    dx, dy = (float(v) for v in pair)
-    if not (math.isfinite(dx) and math.isfinite(dy) and dx > 0 and dy > 0):
-        raise InputError(
-            f"cellsize=({dx}, {dy}) must be finite and positive (metres); pass "
-            "absolute values, e.g. (abs(transform.a), abs(transform.e))."
-        )
-    return dx, dy
+    return check_cell_pair(cellsize)
 
 
 def _check_int(name, value, minimum):

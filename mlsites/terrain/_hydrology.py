@@ -16,6 +16,7 @@ import numbers
 
 import numpy as np
 
+from mlsites._validation import check_cell_pair
 from mlsites.errors import GridMismatchError, InputError
 from mlsites.terrain import _hydro_kernels as _k
 
@@ -49,24 +50,8 @@ _MAX_CELLS = 2**31 - 1  # the flood queues store flat cell indices as int32
 
 # ------------------------------------------------------------------ checks ------
 def _check_cellsize(cellsize):
-    """Return ``(dx, dy)`` in metres from a float or a pair of floats."""
-    if isinstance(cellsize, numbers.Real):
-        pair = (cellsize, cellsize)
-    else:
-        try:
-            pair = tuple(cellsize)
-        except TypeError:
-            pair = ()
-        if len(pair) != 2 or not all(isinstance(v, numbers.Real) for v in pair):
-            raise InputError(
-                f"cellsize {cellsize!r} is not a float or a (dx, dy) pair of floats in metres; "
-                "hydrology and distance layers need a projected grid with constant cell size, "
-                "so reproject a geographic DEM first"
-            )
-    dx, dy = float(pair[0]), float(pair[1])
-    if not (np.isfinite(dx) and np.isfinite(dy) and dx > 0 and dy > 0):
-        raise InputError(f"cellsize (dx={dx}, dy={dy}) m must be positive and finite")
-    return dx, dy
+    return check_cell_pair(cellsize, hint="hydrology and distance layers need a projected grid "
+                           "with constant cell size, so reproject a geographic DEM first")
 
 
 def _check_grid(array, name):

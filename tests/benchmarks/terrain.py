@@ -14,7 +14,6 @@ Targets (issue "terrain stage"): slope+aspect >= 10x gdaldem slope throughput on
 import argparse
 import json
 import os
-import resource
 import shutil
 import subprocess
 import sys

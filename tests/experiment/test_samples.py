@@ -43,7 +43,7 @@ def study(tmp_path_factory):
 def test_table_weights_folds_and_reproducibility(study, tmp_path):
     exp = load_experiment(study / "exp.toml")
     a = prepare_samples(exp, tmp_path / "a", cache_dir=tmp_path / "cache", quiet=True)
-    b = prepare_samples(exp, tmp_path / "b", cache_dir=tmp_path / "cache2", quiet=True)
+    prepare_samples(exp, tmp_path / "b", cache_dir=tmp_path / "cache2", quiet=True)
     # Brief: same seed gives byte-identical tables.
     assert (tmp_path / "a" / "samples.parquet").read_bytes() == (tmp_path / "b" / "samples.parquet").read_bytes()
     t = a.table
