@@ -4,6 +4,7 @@ from mlsites.grid._io import (
     RESAMPLING_BY_KIND,
     AlignedRaster,
     RasterWriter,
+    bounded_gdal_cache,
     open_raster,
     read_array,
     read_grid,
@@ -24,4 +25,5 @@ __all__ = [
     "read_array",
     "read_grid",
     "write_array",
+    "bounded_gdal_cache",
 ]

@@ -29,7 +29,23 @@ __all__ = [
     "RESAMPLING_BY_KIND",
     "read_array",
     "write_array",
+    "bounded_gdal_cache",
 ]
+
+#: GDAL block cache (MB) for windowed jobs; GDAL's default (5 % of RAM) would keep
+#: written tiles in memory until full and undo the bounded-memory design.
+GDAL_CACHE_MB = 128
+
+
+def bounded_gdal_cache(mb: int = GDAL_CACHE_MB):
+    """A ``rasterio.Env`` capping GDAL's block cache, unless the user set one.
+
+    A ``GDAL_CACHEMAX`` from the environment or an enclosing ``rasterio.Env`` wins.
+    """
+    options = rasterio.env.getenv() if rasterio.env.hasenv() else {}
+    if "GDAL_CACHEMAX" in os.environ or "GDAL_CACHEMAX" in options:
+        return rasterio.Env()
+    return rasterio.Env(GDAL_CACHEMAX=mb)
 
 #: Resampling used when a layer of each kind is aligned onto the grid.
 RESAMPLING_BY_KIND = {

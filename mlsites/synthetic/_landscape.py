@@ -18,8 +18,6 @@ from types import MappingProxyType
 
 import geopandas as gpd
 import numpy as np
-import rasterio
-import rasterio.env
 import shapely
 from affine import Affine
 from rasterio.crs import CRS
@@ -27,7 +25,7 @@ from rasterio.windows import Window
 
 from mlsites import __version__
 from mlsites.errors import CRSError, InputError, OutputExistsError
-from mlsites.grid import GridSpec, RasterWriter
+from mlsites.grid import GridSpec, RasterWriter, bounded_gdal_cache
 from mlsites.synthetic._kernels import channel_fields, fbm_grid
 from mlsites.synthetic._valley import ChannelIndex, channel_index, channel_lines, main_surface, valley_geometry
 
@@ -51,8 +49,6 @@ ZONE_CLASSES = MappingProxyType({0: "upland", 1: "channel", 2: "floodplain", 3: 
 _NOISE_STD = 0.216
 #: Number of cells the generator renders at once (bounds the temporary arrays).
 _BLOCK_CELLS = 1 << 20
-#: GDAL block cache (MB) while a DEM is streamed to disk.
-_GDAL_CACHE_MB = 128
 
 #: Defaults of the landscape options (see make_landscape).
 _DEFAULTS = dict(
@@ -576,11 +572,7 @@ def write_landscape_dem(path, shape, *, cellsize: float = 10.0, random_state=0, 
     rows, cols = plan.params["shape"]
     block_cols = min(cols, max(256, (_BLOCK_CELLS // block_rows) // 256 * 256))
     tags = _layer_tags(plan.params, "elevation", units="m")
-    # GDAL's block cache defaults to 5 % of RAM and would hold written tiles until it is
-    # full; a small cache keeps the peak memory bounded (unless the caller set one).
-    options = rasterio.env.getenv() if rasterio.env.hasenv() else {}
-    cache = {} if "GDAL_CACHEMAX" in {**os.environ, **options} else {"GDAL_CACHEMAX": _GDAL_CACHE_MB}
-    with rasterio.Env(**cache), RasterWriter(path, plan.grid, dtype=np.float32, description="elevation",
+    with bounded_gdal_cache(), RasterWriter(path, plan.grid, dtype=np.float32, description="elevation",
                                              tags=tags) as writer:
         for r0 in range(0, rows, block_rows):
             h = min(block_rows, rows - r0)

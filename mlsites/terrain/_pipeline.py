@@ -24,7 +24,7 @@ import numpy as np
 
 from mlsites import __version__
 from mlsites.errors import CRSError, InputError, OutputExistsError
-from mlsites.grid import AlignedRaster, GridSpec, RasterWriter, iter_windows, read_grid
+from mlsites.grid import AlignedRaster, GridSpec, RasterWriter, bounded_gdal_cache, iter_windows, read_grid
 from mlsites.grid._spec import metric_cell_sizes
 
 __all__ = [
@@ -337,7 +337,7 @@ def compute_terrain(dem_path, out_dir, settings: TerrainSettings | None = None, 
     layers_info: dict[str, dict] = {}
     started = time.perf_counter()
     try:
-        with AlignedRaster(dem_path, grid) as dem:
+        with bounded_gdal_cache(), AlignedRaster(dem_path, grid) as dem:
             n_valid = _count_valid(dem, grid, settings, quiet)
             if n_valid == 0:
                 raise InputError(f"{dem_path}: every cell of the DEM is nodata; nothing to derive")
