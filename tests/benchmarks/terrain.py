@@ -82,7 +82,7 @@ def main():
     small = dem[:64, :64]
     for f in (lambda a: terrain.slope_aspect(a, cs), lambda a: terrain.tpi(a, cs, radius=100.0),
               lambda a: terrain.geomorphons(a, cs, lookup_cells=20), lambda a: terrain.ruggedness(a),
-              lambda a: terrain.plan_curvature(a, cs), lambda a: terrain.hydrology_layers(a, cs, stream_threshold_km2=0.5)):
+              lambda a: terrain.plan_curvature(a, cs), lambda a: terrain.hydrology_layers(a, cs, stream_threshold_km2=0.001)):
         f(small)
 
     # Output buffers reused across calls, as a windowed job can: first touch of fresh
