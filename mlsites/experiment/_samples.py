@@ -125,6 +125,10 @@ def _assign_folds(exp, table, features, categorical, grid, rng_seed, log):
             size = float(sug.block_size)
             info["variogram"] = sug.table.to_dict(orient="records")
             if log:
+                log("fitted variogram range per layer:")
+                for row in sug.table.itertuples():
+                    log(f"  {row.layer}: {row.model}, practical range {row.practical_range_m:.0f} m"
+                        + ("" if row.resolved else " (not resolved, left out)"))
                 log(f"block size from predictor variograms: {size:.0f} m ({sug.rule})")
         splitter = SpatialBlockFolds(x, y, site_id=site, block_size=size, n_splits=k,
                                      kind="square" if method == "square_blocks" else "hexagon",

@@ -77,7 +77,11 @@ def test_terrain_cache_reused_and_outputs_protected(study, tmp_path):
 def test_block_size_from_variograms(study, tmp_path):
     text = (study / "exp.toml").read_text().replace("block_size_m = 300\n", "")
     (study / "auto.toml").write_text(text)
-    s = prepare_samples(load_experiment(study / "auto.toml"), tmp_path / "s", cache_dir=tmp_path / "c", quiet=True)
+    lines = []
+    s = prepare_samples(load_experiment(study / "auto.toml"), tmp_path / "s", cache_dir=tmp_path / "c", quiet=True,
+                        log=lines.append)
+    # The suggestion is printed with the fitted range of each layer.
+    assert any(ln.strip().startswith("slope:") and "practical range" in ln for ln in lines)
     assert s.summary["folds"]["block_size_m"] > 0
     assert {row["layer"] for row in s.summary["folds"]["variogram"]} >= {"slope"}
 
