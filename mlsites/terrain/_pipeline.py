@@ -36,10 +36,12 @@ __all__ = [
     "layer_names",
 ]
 
+#: Value of flat cells in the aspect file (aspect is undefined there).
+FLAT_ASPECT = -1.0
 #: Layers computed window by window, with their description and units.
 LOCAL_LAYERS = {
     "slope": ("slope gradient, Horn (1981)", "degrees"),
-    "aspect": ("downslope direction clockwise from north, flat cells nodata", "degrees"),
+    "aspect": ("downslope direction clockwise from north, flat cells -1", "degrees"),
     "northness": ("cosine of aspect, flat cells 0", "unitless"),
     "eastness": ("sine of aspect, flat cells 0", "unitless"),
     "tpi_{r}m": ("topographic position index, disc of radius r", "metres"),
@@ -204,7 +206,11 @@ def _local_layer(name, block, cellsize, settings):
     if name == "slope":
         return t.slope(block, cellsize)
     if name == "aspect":
-        return t.aspect(block, cellsize)
+        slope_deg, aspect_deg = t.slope_aspect(block, cellsize)
+        # Flat cells have no aspect; the file marks them FLAT_ASPECT so a GIS user
+        # can tell them from nodata.
+        aspect_deg[np.isnan(aspect_deg) & ~np.isnan(slope_deg)] = FLAT_ASPECT
+        return aspect_deg
     if name == "northness":
         return t.northness(block, cellsize)
     if name == "eastness":

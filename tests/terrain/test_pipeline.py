@@ -51,7 +51,8 @@ def test_windowed_equals_whole(tmp_path, dem_file, block_rows):
     dem = read_array(dem_file, dtype=np.float64)
     whole = {
         "slope": terrain.slope(dem, 10.0),
-        "aspect": terrain.aspect(dem, 10.0),
+        "aspect": np.where(np.isnan(terrain.aspect(dem, 10.0)) & ~np.isnan(terrain.slope(dem, 10.0)), -1.0,
+                           terrain.aspect(dem, 10.0)),
         "ruggedness": terrain.ruggedness(dem),
         "plan_curvature": terrain.plan_curvature(dem, 10.0),
         "tpi_55m": terrain.tpi(dem, 10.0, radius=55.0),
@@ -94,6 +95,21 @@ def test_outputs_are_tiled_compressed_with_metadata(tmp_path, dem_file):
     summary = json.loads((tmp_path / "o" / "terrain.json").read_text())
     assert summary["layers"]["slope"]["file"] == "slope.tif"
     assert not [p for p in (tmp_path / "o").iterdir() if p.name.startswith(".")]
+
+
+def test_flat_cells_marked_in_aspect_file(tmp_path):
+    # A plateau (constant block) inside a plane: aspect is undefined on the plateau
+    # (METHODS.md §1, constant window) and the file marks it -1, not nodata.
+    grid = GridSpec(CRS.from_epsg(32631), from_origin(0.0, 1000.0, 10.0, 10.0), 30, 30)
+    z = np.add.outer(np.zeros(30), np.arange(30) * 2.0).astype(np.float32)
+    z[10:20, 10:20] = 50.0
+    write_array(tmp_path / "dem.tif", z, grid)
+    compute_terrain(tmp_path / "dem.tif", tmp_path / "o", TerrainSettings(layers=("aspect",)), quiet=True)
+    aspect = read_array(tmp_path / "o" / "aspect.tif")
+    assert (aspect[12:18, 12:18] == -1).all()
+    # Plane falling to the west (z grows east): aspect 270 degrees (METHODS.md §1 check values).
+    np.testing.assert_allclose(aspect[3, 1:8], 270.0, atol=1e-4)
+    assert np.isnan(aspect[0]).all()
 
 
 def test_hydrology_files_match_array_chain(tmp_path, dem_file):
