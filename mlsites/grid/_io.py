@@ -164,15 +164,14 @@ class AlignedRaster(contextlib.AbstractContextManager):
         if r1 <= r0 or c1 <= c0:
             return out
         inner = Window(c0, r0, c1 - c0, r1 - r0)
-        arr = self._ds.read(self.band, window=inner)
-        valid = self._ds.read_masks(self.band, window=inner) > 0
+        # Read straight into the output (rasterio casts), so a whole-grid read costs
+        # the output plus one byte per cell for the mask.
+        target = out[r0 - row0 : r1 - row0, c0 - col0 : c1 - col0]
+        self._ds.read(self.band, window=inner, out=target)
+        invalid = self._ds.read_masks(self.band, window=inner) == 0
         if self.nodata is not None and not np.isnan(self.nodata):
-            valid &= arr != self.nodata
-        if arr.dtype.kind == "f":
-            valid &= ~np.isnan(arr)
-        block = arr.astype(dtype)
-        block[~valid] = np.nan
-        out[r0 - row0 : r1 - row0, c0 - col0 : c1 - col0] = block
+            invalid |= target == self.nodata
+        target[invalid] = np.nan
         return out
 
     def close(self):

@@ -74,6 +74,7 @@ _HYDRO = ("filled_dem", "flow_direction", "flow_accumulation", "streams", "strea
 _INT_LAYERS = {  # dtype, nodata
     "landform": (np.uint8, 0),
     "flow_direction": (np.uint8, 255),
+    "flow_accumulation": (np.uint32, 0),
     "streams": (np.uint8, 255),
 }
 _NAME_RE = re.compile(r"^[a-z][a-z0-9_]*$")

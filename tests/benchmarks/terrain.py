@@ -135,10 +135,18 @@ def main():
     result["default_set_seconds"] = round(whole, 1)
     result["ratio_default_set_to_60s_target"] = round(whole / 60.0, 3)
     result["default_set_peak_rss_mb"] = round(peak)
-    hydro_peak = _child_peak_rss_mb([sys.executable, "-m", "mlsites.cli", "terrain", str(dem_path), "--out",
-                                     str(work / "hydro"), "--layers", HYDRO, "--overwrite", "--quiet"])
-    base = _child_peak_rss_mb([sys.executable, "-c", "import mlsites.terrain, mlsites.cli.terrain, rasterio"])
-    result["hydrology_bytes_per_cell"] = round((hydro_peak - base) * 2**20 / cells, 2)
+    # Bytes per cell of the hydrology layers: the slope of peak memory between two DEM
+    # sizes, so fixed costs (libraries, compiled kernels) do not count per cell.
+    half = work / f"dem_{n // 2}.tif"
+    if not half.exists():
+        write_landscape_dem(half, (n // 2, n // 2), cellsize=10.0, random_state=1)
+    peaks = {}
+    for path, size in ((dem_path, cells), (half, (n // 2) ** 2)):
+        peaks[size] = _child_peak_rss_mb([sys.executable, "-m", "mlsites.cli", "terrain", str(path), "--out",
+                                          str(work / f"hydro_{size}"), "--layers", HYDRO, "--overwrite", "--quiet"])
+    (big_n, big_mb), (small_n, small_mb) = sorted(peaks.items(), reverse=True)
+    result["hydrology_peak_rss_mb"] = {str(k): round(v) for k, v in peaks.items()}
+    result["hydrology_bytes_per_cell"] = round((big_mb - small_mb) * 2**20 / (big_n - small_n), 2)
     result["ratio_hydrology_to_16_bytes_target"] = round(result["hydrology_bytes_per_cell"] / 16.0, 3)
 
     if args.big:
