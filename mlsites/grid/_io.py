@@ -18,7 +18,7 @@ from rasterio.enums import Resampling
 from rasterio.vrt import WarpedVRT
 from rasterio.windows import Window
 
-from mlsites.errors import InputError, RasterReadError
+from mlsites.errors import CRSError, InputError, RasterReadError
 from mlsites.grid._spec import GridSpec
 
 __all__ = [
@@ -75,8 +75,6 @@ def read_grid(path) -> GridSpec:
     """The :class:`GridSpec` of a raster file (its CRS, transform and shape)."""
     with open_raster(path) as src:
         if src.crs is None:
-            from mlsites.errors import CRSError
-
             raise CRSError(
                 f"{path}: raster has no CRS; assign one (for example "
                 "gdal_edit.py -a_srs EPSG:xxxx) before using it as the study grid"
@@ -123,17 +121,11 @@ class AlignedRaster(contextlib.AbstractContextManager):
             raise InputError(f"{path}: band {band} requested, the raster has {self._src.count}")
         self.band = band
         self.nodata = self._src.nodata
-        own = GridSpec.__new__(GridSpec)
-        object.__setattr__(own, "crs", self._src.crs)
-        object.__setattr__(own, "transform", self._src.transform)
-        object.__setattr__(own, "width", self._src.width)
-        object.__setattr__(own, "height", self._src.height)
-        self.reprojected = not (self._src.crs is not None and grid.same_as(own))
+        self.reprojected = not grid.matches(self._src.crs, self._src.transform,
+                                            (self._src.height, self._src.width))
         if self.reprojected:
             if self._src.crs is None:
                 self._src.close()
-                from mlsites.errors import CRSError
-
                 raise CRSError(
                     f"{path}: raster has no CRS and is not on the study grid; assign its CRS first"
                 )

@@ -148,10 +148,19 @@ class GridSpec:
 
     def same_as(self, other: "GridSpec", *, rtol: float = 1e-9) -> bool:
         """True when both grids have the same CRS, shape and (almost) transform."""
+        return self.matches(other.crs, other.transform, other.shape, rtol=rtol)
+
+    def matches(self, crs, transform, shape, *, rtol: float = 1e-9) -> bool:
+        """True when a raster with this CRS, transform and shape lies on this grid.
+
+        Takes the parts rather than a GridSpec so rotated rasters, which a GridSpec
+        refuses, can be compared too (they never match).
+        """
         return (
-            self.shape == other.shape
-            and self.crs == other.crs
-            and np.allclose(tuple(self.transform)[:6], tuple(other.transform)[:6], rtol=rtol, atol=0)
+            tuple(shape) == self.shape
+            and crs is not None
+            and crs == self.crs
+            and np.allclose(tuple(transform)[:6], tuple(self.transform)[:6], rtol=rtol, atol=0)
         )
 
 

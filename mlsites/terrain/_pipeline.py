@@ -10,6 +10,7 @@ their memory per cell).
 
 from __future__ import annotations
 
+import contextlib
 import json
 import math
 import os
@@ -23,7 +24,7 @@ from pathlib import Path
 import numpy as np
 
 from mlsites import __version__
-from mlsites.errors import CRSError, InputError, OutputExistsError
+from mlsites.errors import CRSError, InputError, OutputExistsError, VectorReadError
 from mlsites.grid import AlignedRaster, GridSpec, RasterWriter, bounded_gdal_cache, iter_windows, read_grid
 from mlsites.grid._spec import metric_cell_sizes
 
@@ -156,10 +157,10 @@ def _tpi_radius(name: str, settings: TerrainSettings) -> float:
 
 
 def _check_settings(settings: TerrainSettings, grid: GridSpec, names: list[str], dem_path):
-    min_cell = min(grid.res) if not grid.is_geographic else None
     if any(n.startswith("tpi_") for n in names):
         for r in settings.tpi_radii_m:
-            if not (isinstance(r, (int, float)) and math.isfinite(r)) or (min_cell and r < max(grid.res)):
+            too_small = not grid.is_geographic and r < max(grid.res)
+            if not (isinstance(r, (int, float)) and math.isfinite(r)) or too_small:
                 raise InputError(
                     f"TPI radius {r} m is smaller than one cell ({max(grid.res):g} m); "
                     "give radii of at least one cell"
@@ -200,18 +201,22 @@ def _window_cellsize(grid: GridSpec, row0: int, nrows: int):
     return grid.cellsize()
 
 
-def _local_layer(name, block, cellsize, settings):
-    """Compute one local layer on a padded block (the caller trims the halo)."""
+def _local_layer(name, block, cellsize, settings, memo):
+    """Compute one local layer on a padded block (the caller trims the halo).
+
+    ``memo`` is a dict shared by the layers of one block, so slope and aspect come
+    from a single Horn pass.
+    """
     from mlsites import terrain as t
 
-    if name == "slope":
-        return t.slope(block, cellsize)
-    if name == "aspect":
-        slope_deg, aspect_deg = t.slope_aspect(block, cellsize)
-        # Flat cells have no aspect; the file marks them FLAT_ASPECT so a GIS user
-        # can tell them from nodata.
-        aspect_deg[np.isnan(aspect_deg) & ~np.isnan(slope_deg)] = FLAT_ASPECT
-        return aspect_deg
+    if name in ("slope", "aspect"):
+        if "horn" not in memo:
+            slope_deg, aspect_deg = t.slope_aspect(block, cellsize)
+            # Flat cells have no aspect; the file marks them FLAT_ASPECT so a GIS
+            # user can tell them from nodata.
+            aspect_deg[np.isnan(aspect_deg) & ~np.isnan(slope_deg)] = FLAT_ASPECT
+            memo["horn"] = slope_deg, aspect_deg
+        return memo["horn"][0 if name == "slope" else 1]
     if name == "northness":
         return t.northness(block, cellsize)
     if name == "eastness":
@@ -243,10 +248,11 @@ def _writer_for(path, grid, name):
         tags = {f"class_{k}": v for k, v in LANDFORM_CLASSES.items()}
     elif name == "flow_direction":
         tags = {"encoding": WHOLE_GRID_LAYERS["flow_direction"][0]}
-    desc = dict(LOCAL_LAYERS, **WHOLE_GRID_LAYERS)
-    key = re.sub(r"^tpi_.*m_std$", "tpi_{r}m_std", re.sub(r"^tpi_[0-9p.]+m$", "tpi_{r}m", name))
-    key = "distance_{name}" if name.startswith("distance_") else key
-    about, units = desc.get(key, ("", ""))
+    if name.startswith("tpi_"):
+        key = "tpi_{r}m_std" if name.endswith("_std") else "tpi_{r}m"
+    else:
+        key = "distance_{name}" if name.startswith("distance_") else name
+    about, units = {**LOCAL_LAYERS, **WHOLE_GRID_LAYERS}[key]
     tags.update(layer=name, description=about, units=units, software=f"mlsites {__version__}")
     return RasterWriter(path, grid, dtype=dtype, nodata=nodata, tags=tags, description=name,
                         categorical=name in _INT_LAYERS)
@@ -333,8 +339,6 @@ def compute_terrain(dem_path, out_dir, settings: TerrainSettings | None = None, 
     vectors = {n: Path(p) for n, p in settings.vectors.items()}
     for n, p in list(vectors.items()) + ([("streams", Path(settings.stream_vector))] if settings.stream_vector else []):
         if not p.exists():
-            from mlsites.errors import VectorReadError
-
             raise VectorReadError(f"{p}: vector layer {n!r} not found; check the path")
 
     local = [n for n in names if not (n in _HYDRO or n.startswith("distance_"))]
@@ -345,7 +349,7 @@ def compute_terrain(dem_path, out_dir, settings: TerrainSettings | None = None, 
     started = time.perf_counter()
     try:
         with bounded_gdal_cache(), AlignedRaster(dem_path, grid) as dem:
-            n_valid = _count_valid(dem, grid, settings, quiet)
+            n_valid = _count_valid(dem, grid, settings)
             if n_valid == 0:
                 raise InputError(f"{dem_path}: every cell of the DEM is nodata; nothing to derive")
             if local:
@@ -376,7 +380,7 @@ def compute_terrain(dem_path, out_dir, settings: TerrainSettings | None = None, 
     return summary
 
 
-def _count_valid(dem, grid, settings, quiet) -> int:
+def _count_valid(dem, grid, settings) -> int:
     n = 0
     for w in iter_windows(grid, block_rows=_block_rows(grid, settings, 0)):
         n += int(np.count_nonzero(~np.isnan(dem.read(w.core))))
@@ -392,30 +396,28 @@ def _block_rows(grid, settings, halo):
 def _run_local(dem, grid, names, settings, staging, quiet, log):
     halo = _halo(names, settings, grid)
     windows = list(iter_windows(grid, block_rows=_block_rows(grid, settings, halo), halo=halo))
-    writers = {n: _writer_for(staging / f"{n}.tif", grid, n) for n in names if not n.endswith("_std")}
-    stats = {n: _Stats() for n in writers}
-    seconds = dict.fromkeys(writers, 0.0)
-    try:
-        with _progress(len(windows), "local terrain layers", quiet) as bar:
-            for w in windows:
-                block = dem.read(w.padded)
-                cellsize = _window_cellsize(grid, int(w.padded.row_off), int(w.padded.height))
-                for n, writer in writers.items():
-                    t0 = time.perf_counter()
-                    out = _local_layer(n, block, cellsize, settings)[w.trim]
-                    seconds[n] += time.perf_counter() - t0
-                    if n != "landform":
-                        stats[n].add(out)
-                    writer.write(out, window=w.core)
-                bar.update(1)
-        for n, writer in writers.items():
-            writer.__exit__(None, None, None)
-    except BaseException:
-        for writer in writers.values():
-            writer.abort()
-        raise
+    raw = [n for n in names if not n.endswith("_std")]
+    stats = {n: _Stats() for n in raw}
+    seconds = dict.fromkeys(raw, 0.0)
+    # Each writer finishes (overviews, rename) on success and removes its temporary
+    # file if anything fails.
+    with contextlib.ExitStack() as stack:
+        writers = {n: stack.enter_context(_writer_for(staging / f"{n}.tif", grid, n)) for n in raw}
+        bar = stack.enter_context(_progress(len(windows), "local terrain layers", quiet))
+        for w in windows:
+            block = dem.read(w.padded)
+            cellsize = _window_cellsize(grid, int(w.padded.row_off), int(w.padded.height))
+            memo = {}
+            for n, writer in writers.items():
+                t0 = time.perf_counter()
+                out = _local_layer(n, block, cellsize, settings, memo)[w.trim]
+                seconds[n] += time.perf_counter() - t0
+                if n != "landform":
+                    stats[n].add(out)
+                writer.write(out, window=w.core)
+            bar.update(1)
     info = {}
-    for n in writers:
+    for n in raw:
         info[n] = _layer_info(n, stats[n].summary() if n != "landform" else {}, seconds[n], grid)
         log(f"{n}: {seconds[n]:.1f} s")
     for n in [n for n in names if n.endswith("_std")]:
@@ -424,16 +426,16 @@ def _run_local(dem, grid, names, settings, staging, quiet, log):
         if s.get("valid_cells", 0) == 0 or not s.get("std"):
             raise InputError(f"{raw} has no variation over the DEM; cannot standardise it")
         t0 = time.perf_counter()
-        _standardise_file(staging / f"{raw}.tif", staging / f"{n}.tif", grid, n, s["mean"], s["std"], quiet)
+        _standardise_file(staging / f"{raw}.tif", staging / f"{n}.tif", grid, n, s["mean"], s["std"], settings)
         info[n] = _layer_info(n, {"mean_of_raw": s["mean"], "std_of_raw": s["std"]},
                               time.perf_counter() - t0, grid)
         log(f"{n}: {info[n]['seconds']:.1f} s")
     return info
 
 
-def _standardise_file(src_path, dst_path, grid, name, mean, sd, quiet):
+def _standardise_file(src_path, dst_path, grid, name, mean, sd, settings):
     with AlignedRaster(src_path, grid) as src, _writer_for(dst_path, grid, name) as dst:
-        for w in iter_windows(grid, block_rows=_block_rows(grid, TerrainSettings(), 0)):
+        for w in iter_windows(grid, block_rows=_block_rows(grid, settings, 0)):
             dst.write((src.read(w.core, dtype=np.float64) - mean) / sd, window=w.core)
 
 
@@ -455,28 +457,30 @@ def _run_whole(dem, grid, names, settings, vectors, staging, quiet, log):
         vectors = dict(vectors, __streams__=Path(settings.stream_vector))
     if hydro:
         t0 = time.perf_counter()
-        names = {"filled": "filled_dem", "direction": "flow_direction", "accumulation": "flow_accumulation",
-                 "streams": "streams", "stream_distance": "stream_distance", "hand": "height_above_drainage"}
+        layer_of = {"filled": "filled_dem", "direction": "flow_direction", "accumulation": "flow_accumulation",
+                    "streams": "streams", "stream_distance": "stream_distance", "hand": "height_above_drainage"}
 
         def write(key, array):
             # Each layer goes to disk as soon as it is final, so the chain keeps only
             # the grids later steps need (README: bytes per cell of the hydrology).
-            _write_whole(staging, grid, names[key], array)
+            _write_whole(staging, grid, layer_of[key], array)
 
         t.hydrology_layers(dem.read(), cellsize, stream_threshold_km2=settings.stream_threshold_km2,
-                           wanted={k for k, v in names.items() if v in hydro}, on_layer=write)
+                           wanted={k for k, v in layer_of.items() if v in hydro}, on_layer=write)
         seconds = time.perf_counter() - t0
         for name in hydro:
             info[name] = _layer_info(name, {}, seconds / len(hydro), grid)
         log(f"hydrology ({', '.join(hydro)}): {seconds:.1f} s")
+    nodata = None  # the DEM's nodata cells, read once for all vector layers
     for vname, path in vectors.items():
         name = "stream_distance" if vname == "__streams__" else f"distance_{vname}"
         t0 = time.perf_counter()
         mask = _rasterize_vector(path, grid, vname)
         dist = t.distance_to_cells(mask, cellsize)
         del mask
-        valid = ~np.isnan(dem.read())
-        dist = np.where(valid, dist, np.nan).astype(np.float32)
+        if nodata is None:
+            nodata = np.isnan(dem.read())
+        dist[nodata] = np.nan
         _write_whole(staging, grid, name, dist)
         info[name] = _layer_info(name, {}, time.perf_counter() - t0, grid)
         log(f"{name}: {info[name]['seconds']:.1f} s")
