@@ -18,6 +18,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from mlsites.errors import InputError
+from mlsites.experiment._samples import file_digest
 
 __all__ = ["SavedModel", "TRUSTED_TYPES", "library_versions", "load_model", "save_model"]
 
@@ -63,11 +64,6 @@ def library_versions() -> dict:
             "scipy": scipy.__version__, "pandas": pandas.__version__, "scikit-learn": sklearn.__version__,
             "skops": skops.__version__}
 
-
-def _sha256(path) -> str:
-    from mlsites.experiment._samples import file_digest
-
-    return file_digest(path)
 
 
 def _replace_atomically(write, path: Path):
@@ -121,7 +117,7 @@ def save_model(estimator, directory, name, *, features, categorical=(), grid=Non
     card = {
         "name": name,
         "model_file": model_path.name,
-        "model_sha256": _sha256(model_path),
+        "model_sha256": file_digest(model_path),
         "format": "skops",
         "estimator": type(estimator).__name__,
         "features": list(features),
@@ -196,7 +192,7 @@ def load_model(path) -> SavedModel:
         model_path = card_path.with_name(card.get("model_file", ""))
     if not model_path.is_file():
         raise InputError(f"{model_path}: model file named by {card_path.name} not found")
-    digest = _sha256(model_path)
+    digest = file_digest(model_path)
     if digest != card.get("model_sha256"):
         raise InputError(
             f"{model_path}: SHA-256 {digest[:16]}... differs from {card.get('model_sha256', 'none')!s:.16}... "

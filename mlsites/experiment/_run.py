@@ -27,6 +27,7 @@ import numpy as np
 
 from mlsites import __version__
 from mlsites.errors import ConfigError, InsufficientDataError, OutputExistsError
+from mlsites.experiment._samples import file_digest, input_hashes
 
 __all__ = ["RunResult", "run_experiment", "sample_experiment", "check_input_layers", "output_roots",
            "samples_key"]
@@ -95,36 +96,9 @@ def _digest(obj) -> str:
     return hashlib.sha256(json.dumps(obj, sort_keys=True, default=str).encode()).hexdigest()
 
 
-def input_files(exp) -> dict:
-    """Every input file an experiment reads: role -> absolute path."""
-    files = {"study.dem": exp["study"]["dem"], "sites.path": exp["sites"]["path"],
-             "terrain.stream_lines": exp["terrain"]["stream_lines"],
-             "sampling.survey_areas": exp["sampling"]["survey_areas"]}
-    files.update({f"inputs.{n}": spec["path"] for n, spec in exp["inputs"].items()})
-    files.update({f"distances.{n}": p for n, p in exp["distances"].items()})
-    return {k: str(v) for k, v in files.items() if v}
-
-
-def _file_hashes(exp) -> dict:
-    from mlsites.experiment._samples import file_digest
-
-    hashes = {}
-    for role, path in input_files(exp).items():
-        p = Path(path)
-        if p.is_dir():  # a vector "file" that is a folder (shapefile set and the like)
-            h = hashlib.sha256()
-            for q in sorted(p.rglob("*")):
-                if q.is_file():
-                    h.update(q.relative_to(p).as_posix().encode() + file_digest(q).encode())
-            hashes[role] = {"path": path, "sha256": h.hexdigest()}
-        else:
-            hashes[role] = {"path": path, "sha256": file_digest(p)}
-    return hashes
-
-
 def samples_key(exp, hashes=None) -> str:
     """Hash of everything the sample table depends on (settings, file bytes, version)."""
-    hashes = _file_hashes(exp) if hashes is None else hashes
+    hashes = input_hashes(exp) if hashes is None else hashes
     return _digest({"settings": {s: exp[s] for s in _SAMPLE_SECTIONS},
                     "files": {k: v["sha256"] for k, v in hashes.items()}, "version": __version__})[:16]
 
@@ -225,11 +199,15 @@ def check_input_layers(exp, grid, log=None) -> dict:
 # ---------------------------------------------------------------- samples
 
 
-def _cached_samples(exp, cache_dir: Path, *, fresh, quiet, log) -> tuple[Path, str, bool]:
-    """Folder of the experiment's sample files in the cache; built unless cached."""
+def _cached_samples(exp, cache_dir: Path, *, fresh, quiet, log, hashes=None) -> tuple[Path, str, bool]:
+    """Folder of the experiment's sample files in the cache; built unless cached.
+
+    ``hashes`` (from :func:`input_hashes`) saves hashing the inputs again when the
+    caller already has them.
+    """
     from mlsites.experiment._samples import prepare_samples
 
-    hashes = _file_hashes(exp)
+    hashes = input_hashes(exp) if hashes is None else hashes
     key = samples_key(exp, hashes)
     folder = cache_dir / f"samples-{key}"
     if (folder / "samples.parquet").exists() and not fresh:
@@ -238,7 +216,7 @@ def _cached_samples(exp, cache_dir: Path, *, fresh, quiet, log) -> tuple[Path, s
     cache_dir.mkdir(parents=True, exist_ok=True)
     staging = _staging_dir(cache_dir, f".samples-{key}.partial-")
     try:
-        prepare_samples(exp, staging, cache_dir=cache_dir, fresh=fresh, quiet=quiet, log=log)
+        prepare_samples(exp, staging, cache_dir=cache_dir, fresh=fresh, quiet=quiet, log=log, hashes=hashes)
         old = None
         if folder.exists():
             old = Path(tempfile.mkdtemp(prefix=f".samples-{key}.old-", dir=cache_dir))
@@ -486,7 +464,6 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
     from mlsites.evaluation import cross_validate, write_crossval
     from mlsites.experiment._config import load_experiment
     from mlsites.experiment._models import library_versions, save_model
-    from mlsites.experiment._samples import file_digest
     from mlsites.grid import read_grid
     from mlsites.learners import fit_learner
 
@@ -514,8 +491,9 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
     model_staging = _staging_dir(models_root, f".{name}.partial-")
     try:
         with log.stage("samples"):
-            hashes = _file_hashes(exp)
-            folder, key, cached = _cached_samples(exp, runs_dir / ".cache", fresh=fresh, quiet=quiet, log=log)
+            hashes = input_hashes(exp)
+            folder, key, cached = _cached_samples(exp, runs_dir / ".cache", fresh=fresh, quiet=quiet, log=log,
+                                                  hashes=hashes)
             shutil.copytree(folder, staging / "samples")
             for fname in _SAMPLE_REPORTS:
                 shutil.copy2(folder / fname, staging / fname)

@@ -23,7 +23,8 @@ import pandas as pd
 from mlsites import __version__
 from mlsites.errors import InputError, InsufficientDataError, OutputExistsError
 
-__all__ = ["SampleSet", "derive_layers", "prepare_samples", "FEATURE_EXCLUDED", "file_digest"]
+__all__ = ["SampleSet", "derive_layers", "prepare_samples", "FEATURE_EXCLUDED", "file_digest",
+           "input_files", "input_hashes"]
 
 #: Terrain outputs that are not used as model features (codes, circular or redundant).
 FEATURE_EXCLUDED = {"aspect", "flow_direction", "filled_dem", "streams", "flow_accumulation"}
@@ -56,16 +57,46 @@ def file_digest(path, *, chunk=1 << 22) -> str:
     return h.hexdigest()
 
 
+def input_files(exp) -> dict:
+    """Every input file an experiment reads: role -> absolute path."""
+    files = {"study.dem": exp["study"]["dem"], "sites.path": exp["sites"]["path"],
+             "terrain.stream_lines": exp["terrain"]["stream_lines"],
+             "sampling.survey_areas": exp["sampling"]["survey_areas"]}
+    files.update({f"inputs.{n}": spec["path"] for n, spec in exp["inputs"].items()})
+    files.update({f"distances.{n}": p for n, p in exp["distances"].items()})
+    return {k: str(v) for k, v in files.items() if v}
+
+
+def input_hashes(exp) -> dict:
+    """SHA-256 of every input file of an experiment: role -> {"path", "sha256"}.
+
+    A folder (a shapefile set and the like) hashes the names and bytes of its files.
+    """
+    hashes = {}
+    for role, path in input_files(exp).items():
+        p = Path(path)
+        if p.is_dir():
+            h = hashlib.sha256()
+            for q in sorted(p.rglob("*")):
+                if q.is_file():
+                    h.update(q.relative_to(p).as_posix().encode() + file_digest(q).encode())
+            hashes[role] = {"path": path, "sha256": h.hexdigest()}
+        else:
+            hashes[role] = {"path": path, "sha256": file_digest(p)}
+    return hashes
+
+
 def _settings_digest(obj) -> str:
     return hashlib.sha256(json.dumps(obj, sort_keys=True, default=str).encode()).hexdigest()[:16]
 
 
-def derive_layers(exp, cache_dir, *, fresh=False, quiet=False, log=None) -> dict:
+def derive_layers(exp, cache_dir, *, fresh=False, quiet=False, log=None, hashes=None) -> dict:
     """Terrain and distance layers of an experiment, computed once and cached.
 
     Returns a dict layer name -> (path, kind). The cache folder's name is a hash of
     the DEM bytes, the vector files and the terrain settings, so a second run reuses
-    it and any change recomputes it; ``fresh`` recomputes regardless.
+    it and any change recomputes it; ``fresh`` recomputes regardless. ``hashes``
+    (from :func:`input_hashes`) saves hashing the inputs again.
     """
     from mlsites.terrain import TerrainSettings, compute_terrain
 
@@ -79,10 +110,11 @@ def derive_layers(exp, cache_dir, *, fresh=False, quiet=False, log=None) -> dict
         vectors=dict(exp["distances"]),
         stream_vector=t["stream_lines"],
     )
+    hashes = input_hashes(exp) if hashes is None else hashes
     key = {
-        "dem": file_digest(exp["study"]["dem"]),
-        "vectors": {n: file_digest(p) for n, p in exp["distances"].items()},
-        "stream_lines": file_digest(t["stream_lines"]) if t["stream_lines"] else None,
+        "dem": hashes["study.dem"]["sha256"],
+        "vectors": {n: hashes[f"distances.{n}"]["sha256"] for n in exp["distances"]},
+        "stream_lines": hashes["terrain.stream_lines"]["sha256"] if t["stream_lines"] else None,
         "settings": settings.__dict__, "version": __version__,
     }
     folder = Path(cache_dir) / f"terrain-{_settings_digest(key)}"
@@ -149,7 +181,8 @@ def _assign_folds(exp, table, features, categorical, grid, rng_seed, log):
     return np.asarray(fold, dtype=np.int64), blocks, info
 
 
-def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, log=None) -> SampleSet:
+def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, log=None,
+                    hashes=None) -> SampleSet:
     """Build and write the sample table and folds of an experiment.
 
     Parameters
@@ -161,6 +194,8 @@ def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, l
         Where derived terrain layers are cached (default ``out_dir/../cache``).
     fresh : bool
         Recompute cached layers and replace existing sample files.
+    hashes : dict, optional
+        Input file hashes from :func:`input_hashes`, when the caller has them.
 
     Returns
     -------
@@ -194,7 +229,8 @@ def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, l
     t0 = time.perf_counter()
     dem = exp["study"]["dem"]
     grid = read_grid(dem)
-    layers = derive_layers(exp, cache_dir or out_dir.parent / "cache", fresh=fresh, quiet=quiet, log=log)
+    layers = derive_layers(exp, cache_dir or out_dir.parent / "cache", fresh=fresh, quiet=quiet, log=log,
+                           hashes=hashes)
     valid = read_valid_mask(dem, grid)
     s = exp["sites"]
     if not s["path"]:
