@@ -24,7 +24,7 @@ from mlsites.evaluation._metrics import (
     capture_curve,
     evaluate_scores,
 )
-from mlsites.evaluation._zones import assign_zones, zone_table, zone_thresholds
+from mlsites.evaluation._zones import _zone_shares, assign_zones, zone_table, zone_thresholds
 
 __all__ = ["CrossValResult", "cross_validate", "write_crossval"]
 
@@ -208,12 +208,36 @@ def _fit_and_score(factory, seed, X, label, weight, train, test, train_sites):
     return scores[: test.size], scores[test.size :]
 
 
-def _fold_landscape(test, label, background_rows):
-    """Landscape rows of a fold: held-out background, else all background outside the test."""
-    held = test[label[test] == 0]
-    if held.size:
-        return held, "held_out"
-    return np.setdiff1d(background_rows, test), "all_background"
+@dataclass(frozen=True)
+class _FoldRows:
+    """Rows of one fold: training rows and sites, test rows, landscape rows, rows to score.
+
+    The landscape is the fold's held-out background, or, when its test rows hold
+    none (buffered leave-one-site-out), all background outside the test rows.
+    ``scored`` lists the test rows, then landscape rows outside them; ``site_pos``
+    and ``land_pos`` index the held-out sites and the landscape in ``scored``.
+    """
+
+    train: np.ndarray
+    train_sites: np.ndarray
+    test: np.ndarray
+    land: np.ndarray
+    source: str
+    scored: np.ndarray
+    site_pos: np.ndarray
+    land_pos: np.ndarray
+
+    @classmethod
+    def of(cls, train, test, label, background_rows):
+        site_pos = np.flatnonzero(label[test] == 1)
+        held = np.flatnonzero(label[test] == 0)
+        if held.size:
+            land, source, scored, land_pos = test[held], "held_out", test, held
+        else:
+            land = np.setdiff1d(background_rows, test)
+            source, scored = "all_background", np.concatenate((test, land))
+            land_pos = test.size + np.arange(land.size)
+        return cls(train, train[label[train] == 1], test, land, source, scored, site_pos, land_pos)
 
 
 def _report(progress, message):
@@ -411,53 +435,46 @@ def cross_validate(
     names = list(learners)
     tasks = [(i, k) for i in range(len(names)) for k in range(n_folds)]
     background_rows = np.flatnonzero(label == 0)
+    # Per fold, once for all learners: its landscape rows, the rows to score (test
+    # rows, then landscape rows outside them) and where sites and landscape sit in them.
+    folds = [_FoldRows.of(train, test, label, background_rows) for train, test in splits]
 
     def run(i, k):
-        train, test = splits[k]
-        train_sites = train[label[train] == 1]
-        land, _ = _fold_landscape(test, label, background_rows)
-        test_all = np.concatenate((test, np.setdiff1d(land, test)))
-        s_test, s_train_sites = _fit_and_score(
-            learners[names[i]], seeds[i, k], X, label, weight, train, test_all, train_sites
-        )
-        return s_test, s_train_sites
+        f = folds[k]
+        return _fit_and_score(learners[names[i]], seeds[i, k], X, label, weight, f.train, f.scored,
+                              f.train_sites)
 
     if n_jobs == 1:
-        outputs = []
-        for i, k in tasks:
-            outputs.append(run(i, k))
-            _report(progress, f"{names[i]}: fold {k + 1}/{n_folds} done")
+        results = (run(i, k) for i, k in tasks)
     else:
-        outputs = []
-        gen = Parallel(n_jobs=n_jobs, return_as="generator")(delayed(run)(i, k) for i, k in tasks)
-        for (i, k), out in zip(tasks, gen):
-            outputs.append(out)
-            _report(progress, f"{names[i]}: fold {k + 1}/{n_folds} done")
+        results = Parallel(n_jobs=n_jobs, return_as="generator")(delayed(run)(i, k) for i, k in tasks)
+    outputs = []
+    for (i, k), out in zip(tasks, results):
+        outputs.append(out)
+        _report(progress, f"{names[i]}: fold {k + 1}/{n_folds} done")
 
     sample_id = table["sample_id"].to_numpy()
+    all_test = np.concatenate([f.test for f in folds])
+    all_land = np.concatenate([f.land for f in folds])
+    sources = {f.source for f in folds}
+    pooled_source = sources.pop() if len(sources) == 1 else "mixed"
     fold_rows, oof_parts, zone_parts, curve_parts = [], [], [], []
     for i, name in enumerate(names):
         pooled_sites, pooled_sw, pooled_land = [], [], []
         pooled_codes_site, pooled_codes_land = [], []
-        for k in range(n_folds):
-            train, test = splits[k]
+        for k, f in enumerate(folds):
             s_all, s_train_sites = outputs[i * n_folds + k]
-            land, source = _fold_landscape(test, label, background_rows)
-            test_all = np.concatenate((test, np.setdiff1d(land, test)))
-            score_of = dict(zip(test_all.tolist(), range(test_all.size)))
-            site_rows = test[label[test] == 1]
-            s_site = s_all[[score_of[r] for r in site_rows.tolist()]]
-            s_land = s_all[[score_of[r] for r in land.tolist()]]
-            train_sites = train[label[train] == 1]
-            thresholds = zone_thresholds(s_train_sites, targets=zone_targets, site_weight=weight[train_sites])
+            site_rows = f.test[f.site_pos]
+            s_site, s_land = s_all[f.site_pos], s_all[f.land_pos]
+            thresholds = zone_thresholds(s_train_sites, targets=zone_targets, site_weight=weight[f.train_sites])
             metrics = evaluate_scores(
                 s_site, s_land, site_weight=weight[site_rows], thresholds=thresholds,
                 top_area_shares=top_area_shares,
             )
-            fold_rows.append(_fold_row(name, k, train, site_rows, land, codes, source, metrics))
+            fold_rows.append(_fold_row(name, k, f.train.size, site_rows, f.land, codes, f.source, metrics))
             oof_parts.append(pd.DataFrame({
-                "sample_id": sample_id[test], "learner": name, "fold": k,
-                "score": s_all[: test.size],
+                "sample_id": sample_id[f.test], "learner": name, "fold": k,
+                "score": s_all[: f.test.size],
             }))
             pooled_sites.append(s_site)
             pooled_sw.append(weight[site_rows])
@@ -465,25 +482,16 @@ def cross_validate(
             pooled_codes_site.append(assign_zones(s_site, thresholds))
             pooled_codes_land.append(assign_zones(s_land, thresholds))
         s_site, sw, s_land = (np.concatenate(v) for v in (pooled_sites, pooled_sw, pooled_land))
-        metrics = evaluate_scores(s_site, s_land, site_weight=sw, zone_targets=zone_targets,
-                                  top_area_shares=top_area_shares)
-        all_test = np.concatenate([t for _, t in splits])
-        all_land = np.concatenate([_fold_landscape(t, label, background_rows)[0] for _, t in splits])
-        row = _fold_row(name, POOLED_FOLD, np.array([], dtype=np.int64), all_test[label[all_test] == 1],
-                        all_land, codes, _pooled_source(splits, label, background_rows), metrics)
-        row["n_train"] = np.nan
-        fold_rows.append(row)
         thresholds = zone_thresholds(s_site, targets=zone_targets, site_weight=sw)
+        metrics = evaluate_scores(s_site, s_land, site_weight=sw, thresholds=thresholds,
+                                  top_area_shares=top_area_shares)
+        fold_rows.append(_fold_row(name, POOLED_FOLD, np.nan, all_test[label[all_test] == 1],
+                                   all_land, codes, pooled_source, metrics))
         zt = zone_table(s_site, s_land, thresholds, site_weight=sw)
-        n_zones = len(zt)
-        site_codes_all = np.concatenate(pooled_codes_site)
-        land_codes_all = np.concatenate(pooled_codes_land)
-        # zone codes run n_zones (top) .. 1; table rows run from the top down
-        site_w = np.bincount(site_codes_all, weights=sw, minlength=n_zones + 1)[:0:-1]
-        land_w = np.bincount(land_codes_all, minlength=n_zones + 1)[:0:-1].astype(np.float64)
+        # The zones as each fold maps them from its own training sites, pooled.
         zt.insert(0, "learner", name)
-        zt["heldout_area_share"] = land_w / land_w.sum()
-        zt["heldout_site_share"] = site_w / sw.sum()
+        zt["heldout_area_share"] = _zone_shares(np.concatenate(pooled_codes_land), None, len(zt))
+        zt["heldout_site_share"] = _zone_shares(np.concatenate(pooled_codes_site), sw, len(zt))
         zone_parts.append(zt)
         curve_parts.append(_curves(name, s_site, sw, s_land))
 
@@ -499,16 +507,11 @@ def cross_validate(
     )
 
 
-def _pooled_source(splits, label, background_rows):
-    sources = {_fold_landscape(t, label, background_rows)[1] for _, t in splits}
-    return sources.pop() if len(sources) == 1 else "mixed"
-
-
-def _fold_row(name, fold, train, site_rows, land, codes, source, metrics):
+def _fold_row(name, fold, n_train, site_rows, land, codes, source, metrics):
     row = {
         "learner": name,
         "fold": fold,
-        "n_train": int(train.size),
+        "n_train": n_train,
         "n_test_site_cells": int(site_rows.size),
         "n_test_sites": int(np.unique(codes[site_rows]).size),
         "n_test_background": int(land.size),

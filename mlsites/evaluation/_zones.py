@@ -228,13 +228,8 @@ def zone_table(
     s, sw = _check_scores(site_scores, "site_scores", site_weight, "site_weight")
     land, lw = _check_scores(landscape_scores, "landscape_scores", landscape_weight, "landscape_weight")
     n_zones = values.size + 1
-    # codes run n_zones (top) .. 1 (remainder); reverse so rows go from the top down
-    site_w = np.bincount(assign_zones(s, values), weights=sw, minlength=n_zones + 1)[:0:-1]
-    land_w = np.bincount(assign_zones(land, values), weights=lw, minlength=n_zones + 1)[:0:-1]
-    # Divide by the sums of the zone totals themselves: summing the weights in
-    # another order can put a share a few ulps above 1.
-    site_share = np.clip(site_w / site_w.sum(), 0.0, 1.0)
-    area_share = np.clip(land_w / land_w.sum(), 0.0, 1.0)
+    site_share = _zone_shares(assign_zones(s, values), sw, n_zones)
+    area_share = _zone_shares(assign_zones(land, values), lw, n_zones)
     cum_site = np.minimum(np.cumsum(site_share), 1.0)
     cum_area = np.minimum(np.cumsum(area_share), 1.0)
     return pd.DataFrame(
@@ -251,6 +246,18 @@ def zone_table(
             "cumulative_gain": kvamme_gain(cum_site, cum_area),
         }
     )
+
+
+def _zone_shares(codes, weights, n_zones):
+    """Share of the total weight in each zone, from the top zone down.
+
+    ``codes`` are zone codes from :func:`assign_zones` (``n_zones`` at the top ..
+    1; 0 = nodata is ignored). Shares are divided by the sum of the zone totals
+    themselves (summing the weights in another order can put a share a few ulps
+    above 1) and clipped to [0, 1].
+    """
+    totals = np.bincount(codes, weights=weights, minlength=n_zones + 1)[:0:-1]
+    return np.clip(totals / totals.sum(), 0.0, 1.0)
 
 
 def _check_zone_shares(site_shares, area_shares):
