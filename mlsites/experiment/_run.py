@@ -26,7 +26,7 @@ from pathlib import Path
 import numpy as np
 
 from mlsites import __version__
-from mlsites.errors import ConfigError, InsufficientDataError, OutputExistsError
+from mlsites.errors import ConfigError, OutputExistsError
 from mlsites.experiment._samples import file_digest, input_hashes
 
 __all__ = ["RunResult", "run_experiment", "sample_experiment", "check_input_layers", "output_roots",
@@ -314,23 +314,6 @@ def sample_experiment(path, *, out_dir=None, fresh=False, quiet=False, log=None)
     return _load_sample_set(out_dir)
 
 
-def _check_folds(exp, table):
-    """Every fold needs site cells among its test rows; say which fold and what to change."""
-    if exp["folds"]["method"] == "buffered_leave_one_out":
-        return
-    k = exp["folds"]["n_splits"]
-    counts = np.bincount(table.loc[table["label"] == 1, "fold"].to_numpy(), minlength=k)
-    empty = np.flatnonzero(counts[:k] == 0)
-    if empty.size:
-        size = exp["folds"]["block_size_m"]
-        hint = (f"use smaller blocks (block_size_m = {size:g} now, try {size / 2:g}) or fewer folds "
-                f"(n_splits = {k})") if size else f"use fewer folds (n_splits = {k})"
-        raise InsufficientDataError(
-            f"{exp.path}: fold {int(empty[0])} has no site cells in its test rows "
-            f"({int(counts.sum())} site cells in {k} folds); {hint} in [folds]"
-        )
-
-
 # ---------------------------------------------------------------- the run
 
 
@@ -499,18 +482,23 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
                 shutil.copy2(folder / fname, staging / fname)
             samples = _load_sample_set(staging / "samples")
             table, features, categorical = samples.table, samples.features, samples.categorical
-            _check_folds(exp, table)
             n_sites = int(table.loc[table["label"] == 1, "site_id"].nunique())
             log(f"samples: {int((table['label'] == 1).sum())} site cells of {n_sites} sites, "
                 f"{int((table['label'] == 0).sum())} background cells, {len(features)} features")
         factories = _learner_factories(exp, categorical, seed)
         ev = exp["evaluation"]
+        splitter = None
+        if exp["folds"]["method"] == "buffered_leave_one_out":
+            from mlsites.experiment._samples import buffered_splitter
+
+            splitter = buffered_splitter(exp, table, grid)
+        n_folds = splitter.get_n_splits() if splitter is not None else int(table["fold"].nunique())
         with log.stage("cross-validation"), _convergence_notes(log, "cross-validation"):
-            with _progress(len(factories) * int(table["fold"].nunique()), "cross-validation", quiet) as bar:
+            with _progress(len(factories) * n_folds, "cross-validation", quiet) as bar:
                 result = cross_validate(table, features=features, categorical=categorical, learners=factories,
-                                        fold_column="fold", random_state=seed, zone_targets=ev["zone_targets"],
-                                        top_area_shares=tuple(ev["top_area_shares"]), n_jobs=n_jobs,
-                                        progress=bar)
+                                        fold_column="fold", splitter=splitter, random_state=seed,
+                                        zone_targets=ev["zone_targets"], top_area_shares=tuple(ev["top_area_shares"]),
+                                        n_jobs=n_jobs, progress=bar)
             write_crossval(result, staging)
             best = result.summary.iloc[0]
             log(f"best learner by mean fold AUC: {best['learner']} ({best['auc_mean']:.3f})")

@@ -132,14 +132,24 @@ def derive_layers(exp, cache_dir, *, fresh=False, quiet=False, log=None, hashes=
     return layers
 
 
+def buffered_splitter(exp, table, grid):
+    """The buffered leave-one-site-out splitter of an experiment's sample table.
+
+    Its training sets depend on distances, not on a fold column, so the sample
+    table records only which site each row belongs to and every user of the folds
+    (cross-validation included) builds this splitter.
+    """
+    from mlsites.folds import BufferedLeaveOneSiteOut
+    from mlsites.sampling._sites import metres_to_crs_units
+
+    site = np.where(table["label"].to_numpy() == 1, table["site_id"].to_numpy(), None)
+    buffer = metres_to_crs_units(grid, exp["folds"]["buffer_m"], "folds.buffer_m")
+    return BufferedLeaveOneSiteOut(table["x"].to_numpy(), table["y"].to_numpy(), site, buffer=buffer)
+
+
 def _assign_folds(exp, table, features, categorical, grid, rng_seed, log):
-    from mlsites.folds import (
-        BufferedLeaveOneSiteOut,
-        EnvironmentalFolds,
-        RandomFolds,
-        SpatialBlockFolds,
-        suggest_block_size,
-    )
+    from mlsites.folds import EnvironmentalFolds, RandomFolds, SpatialBlockFolds, suggest_block_size
+    from mlsites.sampling._sites import metres_to_crs_units
 
     f = exp["folds"]
     method, k = f["method"], f["n_splits"]
@@ -148,13 +158,17 @@ def _assign_folds(exp, table, features, categorical, grid, rng_seed, log):
     info: dict = {"method": method, "n_splits": k}
     blocks = None
     if method in ("square_blocks", "hexagon_blocks"):
+        # Sample coordinates are in grid CRS units; block sizes are given in metres.
+        per_metre = metres_to_crs_units(grid, 1.0, "folds.block_size_m")
         size = f["block_size_m"]
         if size is None:
             bg = table["label"].to_numpy() == 0
             cont = [c for c in features if c not in categorical]
             sug = suggest_block_size(x[bg], y[bg], {c: table.loc[bg, c].to_numpy() for c in cont},
                                      random_state=rng_seed)
-            size = float(sug.block_size)
+            size = float(sug.block_size) / per_metre
+            for c in ("range_param_m", "practical_range_m"):
+                sug.table[c] = sug.table[c] / per_metre
             info["variogram"] = sug.table.to_dict(orient="records")
             if log:
                 log("fitted variogram range per layer:")
@@ -162,14 +176,14 @@ def _assign_folds(exp, table, features, categorical, grid, rng_seed, log):
                     log(f"  {row.layer}: {row.model}, practical range {row.practical_range_m:.0f} m"
                         + ("" if row.resolved else " (not resolved, left out)"))
                 log(f"block size from predictor variograms: {size:.0f} m ({sug.rule})")
-        splitter = SpatialBlockFolds(x, y, site_id=site, block_size=size, n_splits=k,
+        splitter = SpatialBlockFolds(x, y, site_id=site, block_size=size * per_metre, n_splits=k,
                                      kind="square" if method == "square_blocks" else "hexagon",
                                      origin=(grid.bounds[0], grid.bounds[1]), random_state=rng_seed)
         assignment = splitter.assign(crs=grid.crs)
         fold, blocks = assignment.fold, assignment.blocks
         info["block_size_m"] = size
     elif method == "buffered_leave_one_out":
-        fold = BufferedLeaveOneSiteOut(x, y, site, buffer=f["buffer_m"]).fold_array()
+        fold = buffered_splitter(exp, table, grid).fold_array()
         info["buffer_m"] = f["buffer_m"]
     elif method == "environmental":
         cont = [c for c in features if c not in categorical]
