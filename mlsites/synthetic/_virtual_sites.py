@@ -13,9 +13,10 @@ from dataclasses import dataclass
 
 import geopandas as gpd
 import numpy as np
-from shapely.geometry import Point, box
+from shapely.geometry import box
 from shapely.affinity import rotate
 
+from mlsites._validation import check_cell_pair
 from mlsites.errors import InputError
 from mlsites.grid import GridSpec
 
@@ -157,7 +158,8 @@ def make_virtual_sites(layers: dict, grid: GridSpec, *, n_sites: int = 300, pref
         raise InputError("the preference surface is zero everywhere; check the layers")
     p = flat / flat.sum()
     rows, cols, cluster = [], [], []
-    res = np.array(grid.res)
+    res = np.array(grid.res)  # CRS units, for the jitter within a cell
+    metres = np.array(check_cell_pair(grid.cellsize()))  # (dx, dy) in metres, for the cluster radius
     n_clusters = 0
     while len(rows) < n_sites:
         centre = rng.choice(flat.size, p=p)
@@ -167,9 +169,9 @@ def make_virtual_sites(layers: dict, grid: GridSpec, *, n_sites: int = 300, pref
             if k == 0:
                 r, c = r0, c0
             else:
-                dr, dc = rng.normal(0.0, cluster_radius_m, 2) / res[::-1]
+                dr, dc = rng.normal(0.0, cluster_radius_m, 2) / metres[::-1]
                 r, c = int(round(r0 + dr)), int(round(c0 + dc))
-                if not (0 <= r < grid.height and 0 <= c < grid.width):
+                if not grid.contains(r, c):
                     continue
                 if rng.random() >= np.nan_to_num(truth[r, c]):
                     continue
@@ -185,7 +187,7 @@ def make_virtual_sites(layers: dict, grid: GridSpec, *, n_sites: int = 300, pref
     x = x + rng.uniform(-0.5, 0.5, x.size) * res[0]
     y = y + rng.uniform(-0.5, 0.5, y.size) * res[1]
     survey = _survey_strips(grid, rng, n_survey_strips, strip_width_m, (1.0, 2.0, 3.0))
-    pts = gpd.GeoSeries([Point(a, b) for a, b in zip(x, y)], crs=grid.crs)
+    pts = gpd.GeoSeries(gpd.points_from_xy(x, y), crs=grid.crs)
     inside = pts.within(survey.union_all()).to_numpy()
     recorded = rng.random(x.size) < np.where(inside, detect_inside, detect_outside)
     names = list(PHASES)

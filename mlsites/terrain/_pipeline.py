@@ -24,6 +24,7 @@ from pathlib import Path
 import numpy as np
 
 from mlsites import __version__
+from mlsites._validation import check_cell_pair
 from mlsites.errors import CRSError, InputError, OutputExistsError, VectorReadError
 from mlsites.grid import AlignedRaster, GridSpec, RasterWriter, bounded_gdal_cache, iter_windows, read_grid
 from mlsites.grid._spec import metric_cell_sizes
@@ -158,11 +159,12 @@ def _tpi_radius(name: str, settings: TerrainSettings) -> float:
 
 def _check_settings(settings: TerrainSettings, grid: GridSpec, names: list[str], dem_path):
     if any(n.startswith("tpi_") for n in names):
+        cell = None if grid.is_geographic else max(_metric_res(grid))
         for r in settings.tpi_radii_m:
-            too_small = not grid.is_geographic and r < max(grid.res)
+            too_small = cell is not None and r < cell
             if not (isinstance(r, (int, float)) and math.isfinite(r)) or too_small:
                 raise InputError(
-                    f"TPI radius {r} m is smaller than one cell ({max(grid.res):g} m); "
+                    f"TPI radius {r} m is smaller than one cell ({cell:g} m); "
                     "give radii of at least one cell"
                 )
     if settings.landform_lookup_cells < 1:
@@ -185,11 +187,16 @@ def _check_settings(settings: TerrainSettings, grid: GridSpec, names: list[str],
         )
 
 
+def _metric_res(grid: GridSpec) -> tuple[float, float]:
+    """Cell size (dx, dy) in metres of a projected grid (its CRS unit may be feet)."""
+    return check_cell_pair(grid.cellsize())
+
+
 def _halo(names: list[str], settings: TerrainSettings, grid: GridSpec) -> int:
     halo = 1
     for n in names:
         if n.startswith("tpi_"):
-            halo = max(halo, int(math.ceil(_tpi_radius(n, settings) / min(grid.res))))
+            halo = max(halo, int(math.ceil(_tpi_radius(n, settings) / min(_metric_res(grid)))))
         elif n == "landform":
             halo = max(halo, settings.landform_lookup_cells)
     return halo
