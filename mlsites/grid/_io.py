@@ -14,7 +14,7 @@ from pathlib import Path
 
 import numpy as np
 import rasterio
-from rasterio.enums import Resampling
+from rasterio.enums import MaskFlags, Resampling
 from rasterio.vrt import WarpedVRT
 from rasterio.windows import Window
 
@@ -143,6 +143,10 @@ class AlignedRaster(contextlib.AbstractContextManager):
             )
         else:
             self._ds = self._src
+        # When the mask is just "equal to nodata" (or "all valid"), comparing values
+        # finds the same cells; asking GDAL for the mask would decode the band twice.
+        flags = self._ds.mask_flag_enums[band - 1]
+        self._mask_from_values = all(f in (MaskFlags.nodata, MaskFlags.all_valid) for f in flags)
 
     def read(self, window: Window | None = None, *, dtype=np.float32) -> np.ndarray:
         """Read a window of the grid (may extend past its edges) with NaN nodata."""
@@ -160,10 +164,14 @@ class AlignedRaster(contextlib.AbstractContextManager):
         # the output plus one byte per cell for the mask.
         target = out[r0 - row0 : r1 - row0, c0 - col0 : c1 - col0]
         self._ds.read(self.band, window=inner, out=target)
-        invalid = self._ds.read_masks(self.band, window=inner) == 0
-        if self.nodata is not None and not np.isnan(self.nodata):
-            invalid |= target == self.nodata
-        target[invalid] = np.nan
+        if self._mask_from_values:
+            if self.nodata is not None and not np.isnan(self.nodata):
+                target[target == self.nodata] = np.nan
+        else:
+            invalid = self._ds.read_masks(self.band, window=inner) == 0
+            if self.nodata is not None and not np.isnan(self.nodata):
+                invalid |= target == self.nodata
+            target[invalid] = np.nan
         return out
 
     def close(self):
