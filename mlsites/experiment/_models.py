@@ -18,7 +18,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from mlsites.errors import InputError
-from mlsites.experiment._samples import file_digest
+from mlsites.experiment._hashing import file_digest
 
 __all__ = ["SavedModel", "TRUSTED_TYPES", "library_versions", "load_model", "save_model"]
 

@@ -13,7 +13,6 @@ from __future__ import annotations
 import contextlib
 import datetime as _dt
 import functools
-import hashlib
 import json
 import os
 import re
@@ -27,7 +26,7 @@ import numpy as np
 
 from mlsites import __version__
 from mlsites.errors import ConfigError, OutputExistsError
-from mlsites.experiment._samples import file_digest, input_hashes
+from mlsites.experiment._hashing import file_digest, input_hashes, settings_digest
 
 __all__ = ["RunResult", "run_experiment", "sample_experiment", "check_input_layers", "output_roots",
            "samples_key"]
@@ -92,14 +91,10 @@ class _Log:
         self(f"{name}: done in {seconds:.1f} s")
 
 
-def _digest(obj) -> str:
-    return hashlib.sha256(json.dumps(obj, sort_keys=True, default=str).encode()).hexdigest()
-
-
 def samples_key(exp, hashes=None) -> str:
     """Hash of everything the sample table depends on (settings, file bytes, version)."""
     hashes = input_hashes(exp) if hashes is None else hashes
-    return _digest({"settings": {s: exp[s] for s in _SAMPLE_SECTIONS},
+    return settings_digest({"settings": {s: exp[s] for s in _SAMPLE_SECTIONS},
                     "files": {k: v["sha256"] for k, v in hashes.items()}, "version": __version__})[:16]
 
 
@@ -146,18 +141,14 @@ def check_input_layers(exp, grid, log=None) -> dict:
     """
     from rasterio.enums import Resampling
 
-    from mlsites.grid import GridSpec, open_raster
+    from mlsites.grid import open_raster
 
     log = log or (lambda m: None)
     status = {}
     for name, spec in exp["inputs"].items():
         path, kind, band = spec["path"], spec["kind"], spec.get("band", 1)
         with open_raster(path) as src:
-            own = GridSpec.__new__(GridSpec)
-            for attr, value in (("crs", src.crs), ("transform", src.transform), ("width", src.width),
-                                ("height", src.height)):
-                object.__setattr__(own, attr, value)
-            aligned = not (src.crs is not None and grid.same_as(own))
+            aligned = not grid.matches(src.crs, src.transform, (src.height, src.width))
             if aligned and src.crs is not None:
                 how = "nearest" if kind == "categorical" else "bilinear"
                 log(f"aligned {name} from {_crs_label(src.crs)}, {abs(src.res[0]):g} x {abs(src.res[1]):g} "
@@ -217,13 +208,7 @@ def _cached_samples(exp, cache_dir: Path, *, fresh, quiet, log, hashes=None) -> 
     staging = _staging_dir(cache_dir, f".samples-{key}.partial-")
     try:
         prepare_samples(exp, staging, cache_dir=cache_dir, fresh=fresh, quiet=quiet, log=log, hashes=hashes)
-        old = None
-        if folder.exists():
-            old = Path(tempfile.mkdtemp(prefix=f".samples-{key}.old-", dir=cache_dir))
-            os.replace(folder, old / "x")
-        os.replace(staging, folder)
-        if old is not None:
-            shutil.rmtree(old, ignore_errors=True)
+        _swap_into_place(staging, folder)
     finally:
         shutil.rmtree(staging, ignore_errors=True)
     return folder, key, False

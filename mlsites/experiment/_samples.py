@@ -8,7 +8,6 @@ table and folds, so comparisons are fair by construction.
 
 from __future__ import annotations
 
-import hashlib
 import json
 import os
 import shutil
@@ -22,9 +21,9 @@ import pandas as pd
 
 from mlsites import __version__
 from mlsites.errors import InputError, InsufficientDataError, OutputExistsError
+from mlsites.experiment._hashing import input_hashes, settings_digest
 
-__all__ = ["SampleSet", "derive_layers", "prepare_samples", "FEATURE_EXCLUDED", "file_digest",
-           "input_files", "input_hashes"]
+__all__ = ["SampleSet", "derive_layers", "prepare_samples", "buffered_splitter", "FEATURE_EXCLUDED"]
 
 #: Terrain outputs that are not used as model features (codes, circular or redundant).
 FEATURE_EXCLUDED = {"aspect", "flow_direction", "filled_dem", "streams", "flow_accumulation"}
@@ -46,48 +45,6 @@ class SampleSet:
     categorical: list
     folder: Path
     summary: dict
-
-
-def file_digest(path, *, chunk=1 << 22) -> str:
-    """SHA-256 of a file's bytes (for manifests and caches)."""
-    h = hashlib.sha256()
-    with open(path, "rb") as f:
-        while block := f.read(chunk):
-            h.update(block)
-    return h.hexdigest()
-
-
-def input_files(exp) -> dict:
-    """Every input file an experiment reads: role -> absolute path."""
-    files = {"study.dem": exp["study"]["dem"], "sites.path": exp["sites"]["path"],
-             "terrain.stream_lines": exp["terrain"]["stream_lines"],
-             "sampling.survey_areas": exp["sampling"]["survey_areas"]}
-    files.update({f"inputs.{n}": spec["path"] for n, spec in exp["inputs"].items()})
-    files.update({f"distances.{n}": p for n, p in exp["distances"].items()})
-    return {k: str(v) for k, v in files.items() if v}
-
-
-def input_hashes(exp) -> dict:
-    """SHA-256 of every input file of an experiment: role -> {"path", "sha256"}.
-
-    A folder (a shapefile set and the like) hashes the names and bytes of its files.
-    """
-    hashes = {}
-    for role, path in input_files(exp).items():
-        p = Path(path)
-        if p.is_dir():
-            h = hashlib.sha256()
-            for q in sorted(p.rglob("*")):
-                if q.is_file():
-                    h.update(q.relative_to(p).as_posix().encode() + file_digest(q).encode())
-            hashes[role] = {"path": path, "sha256": h.hexdigest()}
-        else:
-            hashes[role] = {"path": path, "sha256": file_digest(p)}
-    return hashes
-
-
-def _settings_digest(obj) -> str:
-    return hashlib.sha256(json.dumps(obj, sort_keys=True, default=str).encode()).hexdigest()[:16]
 
 
 def derive_layers(exp, cache_dir, *, fresh=False, quiet=False, log=None, hashes=None) -> dict:
@@ -117,7 +74,7 @@ def derive_layers(exp, cache_dir, *, fresh=False, quiet=False, log=None, hashes=
         "stream_lines": hashes["terrain.stream_lines"]["sha256"] if t["stream_lines"] else None,
         "settings": settings.__dict__, "version": __version__,
     }
-    folder = Path(cache_dir) / f"terrain-{_settings_digest(key)}"
+    folder = Path(cache_dir) / f"terrain-{settings_digest(key)[:16]}"
     if fresh and folder.exists():
         shutil.rmtree(folder)
     if not (folder / "terrain.json").exists():
