@@ -3,7 +3,7 @@
 import click
 
 from mlsites.cli.main import handle_errors
-from mlsites.cli.options import echo_unless, quiet_option
+from mlsites.cli.options import comma_floats, comma_names, echo_unless, quiet_option
 
 
 def _layer_pairs(ctx, param, values):
@@ -29,8 +29,8 @@ def _layer_pairs(ctx, param, values):
 @click.option("--crs", help="CRS of CSV coordinates, e.g. EPSG:32631.")
 @click.option("--layer", "inputs", multiple=True, callback=_layer_pairs, metavar="NAME=PATH[:categorical]",
               help="Extra raster layer (repeatable).")
-@click.option("--terrain-layers", help="Comma-separated terrain layers to derive.")
-@click.option("--tpi-radii", help="TPI radii in metres, comma-separated.")
+@click.option("--terrain-layers", callback=comma_names, help="Comma-separated terrain layers to derive.")
+@click.option("--tpi-radii", "tpi_radii_m", callback=comma_floats, help="TPI radii in metres, comma-separated.")
 @click.option("--site-buffer", "site_buffer_m", type=float, help="Site buffer radius, metres.")
 @click.option("--background", "background_count", type=int, help="Number of background cells.")
 @click.option("--exclusion", "exclusion_m", type=float, help="Keep background this far from sites, metres.")
@@ -46,7 +46,7 @@ def _layer_pairs(ctx, param, values):
 @click.option("--fresh", is_flag=True, help="Replace existing sample files and ignore cached layers and samples.")
 @quiet_option
 @handle_errors
-def sample(experiment, out_dir, inputs, terrain_layers, tpi_radii, fresh, quiet, **flags):
+def sample(experiment, out_dir, inputs, fresh, quiet, **flags):
     """Write the sample table and folds (samples.parquet, folds.csv, blocks.gpkg,
     dropped_records.csv, sampling.json) of EXPERIMENT, or of a study given by flags.
     Flags override the experiment file's settings."""
@@ -55,14 +55,9 @@ def sample(experiment, out_dir, inputs, terrain_layers, tpi_radii, fresh, quiet,
 
     if experiment is None and not (flags["dem"] and flags["sites"] and out_dir):
         raise click.UsageError("give an EXPERIMENT file, or --dem, --sites and --out")
-    if terrain_layers:
-        flags["terrain_layers"] = [v for v in terrain_layers.replace(",", " ").split() if v]
-    if tpi_radii:
-        try:
-            flags["tpi_radii_m"] = [float(v) for v in tpi_radii.replace(",", " ").split()]
-        except ValueError:
-            msg = f"expected numbers separated by commas, got {tpi_radii!r}"
-            raise click.BadParameter(msg, param_hint="--tpi-radii") from None
+    for key in ("terrain_layers", "tpi_radii_m"):  # TOML lists, not tuples
+        if flags[key] is not None:
+            flags[key] = list(flags[key])
     if experiment is None:
         # Flags alone: the layer and sample cache lives inside the output folder.
         flags.update(name="samples", runs_dir=out_dir)

@@ -3,20 +3,7 @@
 import click
 
 from mlsites.cli.main import handle_errors
-from mlsites.cli.options import echo_unless, overwrite_option, quiet_option
-
-
-def _floats(ctx, param, value):
-    if value is None:
-        return None
-    try:
-        return tuple(float(v) for v in value.replace(",", " ").split())
-    except ValueError:
-        raise click.BadParameter(f"expected numbers separated by commas, got {value!r}") from None
-
-
-def _names(ctx, param, value):
-    return None if value is None else tuple(v for v in value.replace(",", " ").split() if v)
+from mlsites.cli.options import comma_floats, comma_names, echo_unless, overwrite_option, quiet_option
 
 
 def _pairs(ctx, param, values):
@@ -32,8 +19,8 @@ def _pairs(ctx, param, values):
 @click.command()
 @click.argument("dem", type=click.Path(dir_okay=False))
 @click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Output folder.")
-@click.option("--layers", callback=_names, help="Comma-separated layer names (default: the standard set).")
-@click.option("--tpi-radii", callback=_floats, help="TPI disc radii in metres, comma-separated (default 100,500).")
+@click.option("--layers", callback=comma_names, help="Comma-separated layer names (default: the standard set).")
+@click.option("--tpi-radii", callback=comma_floats, help="TPI disc radii in metres, comma-separated (default 100,500).")
 @click.option("--landform-lookup", type=int, default=20, show_default=True, help="Geomorphon lookup distance in cells.")
 @click.option("--landform-flatness", type=float, default=1.0, show_default=True, help="Geomorphon flatness threshold in degrees.")
 @click.option("--stream-threshold", type=float, default=0.5, show_default=True, help="Contributing area of a stream cell, km2.")

@@ -20,7 +20,6 @@ from mlsites.errors import ConfigError
 
 __all__ = ["SCHEMA", "Experiment", "load_experiment", "experiment_from_dict", "experiment_from_flags"]
 
-_ANY = object()
 _NUM = (int, float)
 
 # section -> key -> (accepted types, default, is_path). ``dict`` sections whose keys
@@ -397,7 +396,7 @@ def experiment_from_flags(experiment=None, *, inputs=None, **flags) -> Experimen
         if value is None:
             continue
         section, key = FLAG_KEYS[flag]
-        is_path = key in ("dem", "path", "survey_areas", "runs_dir")
+        is_path = SCHEMA[section][key][2]
         data.setdefault(section, {})[key] = str(Path(value).resolve()) if is_path else value
     for name, (p, kind) in (inputs or {}).items():
         data.setdefault("inputs", {})[name] = {"path": str(Path(p).resolve()), "kind": kind}

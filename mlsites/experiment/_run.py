@@ -95,7 +95,8 @@ def samples_key(exp, hashes=None) -> str:
     """Hash of everything the sample table depends on (settings, file bytes, version)."""
     hashes = input_hashes(exp) if hashes is None else hashes
     return settings_digest({"settings": {s: exp[s] for s in _SAMPLE_SECTIONS},
-                    "files": {k: v["sha256"] for k, v in hashes.items()}, "version": __version__})[:16]
+                            "files": {k: v["sha256"] for k, v in hashes.items()},
+                            "version": __version__})[:16]
 
 
 # ---------------------------------------------------------------- input checks
