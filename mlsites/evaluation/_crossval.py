@@ -8,7 +8,6 @@ each with the best one across folds; zones and curves come from the pooled
 out-of-fold scores.
 """
 
-import os
 from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
@@ -17,6 +16,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from mlsites._files import replacing
 from mlsites.errors import InputError, InsufficientDataError
 from mlsites.evaluation._metrics import (
     DEFAULT_TOP_AREA_SHARES,
@@ -538,19 +538,9 @@ def _curves(name, s_site, sw, s_land):
 # --------------------------------------------------------------------- output
 
 
-def _replace_into(path, write):
-    """Write through ``write(tmp_path)`` to a temporary name, then rename into place."""
-    tmp = path.with_name(f".{path.name}.tmp")
-    try:
-        write(tmp)
-        os.replace(tmp, path)
-    finally:
-        if tmp.exists():
-            tmp.unlink()
-
-
 def _write_csv(frame, path):
-    _replace_into(path, lambda p: frame.to_csv(p, index=False, float_format=_FLOAT_FORMAT, lineterminator="\n"))
+    with replacing(path) as tmp:
+        frame.to_csv(tmp, index=False, float_format=_FLOAT_FORMAT, lineterminator="\n")
 
 
 def _plot(curves, kind, path, xlabel, ylabel, title):
@@ -572,7 +562,8 @@ def _plot(curves, kind, path, xlabel, ylabel, title):
         ax.set_title(title)
         ax.legend(loc="lower right", frameon=False)
         fig.tight_layout()
-        _replace_into(path, lambda p: fig.savefig(p, format="png", metadata={"Software": None}))
+        with replacing(path) as tmp:
+            fig.savefig(tmp, format="png", metadata={"Software": None})
     finally:
         plt.close(fig)
 

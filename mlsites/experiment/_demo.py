@@ -9,11 +9,11 @@ gentle slopes near streams, and the survey strips are the areas that were walked
 
 from __future__ import annotations
 
-import os
 from pathlib import Path
 
 import numpy as np
 
+from mlsites._files import replacing
 from mlsites.errors import OutputExistsError
 
 __all__ = ["DEMO_FILES", "DEMO_SETTINGS", "write_demo_data", "prepare_demo_folder"]
@@ -25,13 +25,8 @@ DEMO_SETTINGS = dict(shape=(600, 600), cellsize=10.0, n_sites=360, random_state=
 
 
 def _write_vector(frame, path: Path, layer: str):
-    tmp = path.with_name(f".{path.stem}.partial{path.suffix}")
-    tmp.unlink(missing_ok=True)
-    try:
+    with replacing(path) as tmp:
         frame.to_file(tmp, layer=layer, driver="GPKG")
-        os.replace(tmp, path)
-    finally:
-        tmp.unlink(missing_ok=True)
 
 
 def write_demo_data(directory, *, shape=(600, 600), cellsize: float = 10.0, n_sites: int = 260,

@@ -11,12 +11,12 @@ whose hash differs from its card, and any type outside a short allow-list.
 from __future__ import annotations
 
 import json
-import os
 import platform
 import zipfile
 from dataclasses import dataclass
 from pathlib import Path
 
+from mlsites._files import replacing
 from mlsites.errors import InputError
 from mlsites.experiment._hashing import file_digest
 
@@ -66,15 +66,6 @@ def library_versions() -> dict:
 
 
 
-def _replace_atomically(write, path: Path):
-    tmp = path.with_name(f".{path.name}.partial")
-    try:
-        write(tmp)
-        os.replace(tmp, path)
-    finally:
-        tmp.unlink(missing_ok=True)
-
-
 def save_model(estimator, directory, name, *, features, categorical=(), grid=None,
                training_data_sha256=None, settings=None, metrics=None, extra=None) -> SavedModel:
     """Write a fitted estimator as ``NAME.skops`` and its card as ``NAME.card.json``.
@@ -111,7 +102,8 @@ def save_model(estimator, directory, name, *, features, categorical=(), grid=Non
     directory.mkdir(parents=True, exist_ok=True)
     model_path = directory / f"{name}{MODEL_SUFFIX}"
     card_path = directory / f"{name}{CARD_SUFFIX}"
-    _replace_atomically(lambda p: sio.dump(estimator, p, compression=zipfile.ZIP_DEFLATED), model_path)
+    with replacing(model_path) as tmp:
+        sio.dump(estimator, tmp, compression=zipfile.ZIP_DEFLATED)
     if grid is not None and not isinstance(grid, dict):
         grid = grid.to_dict()
     card = {
@@ -130,7 +122,8 @@ def save_model(estimator, directory, name, *, features, categorical=(), grid=Non
         **(extra or {}),
     }
     text = json.dumps(card, indent=2, default=_json_default) + "\n"
-    _replace_atomically(lambda p: p.write_text(text, encoding="utf-8"), card_path)
+    with replacing(card_path) as tmp:
+        tmp.write_text(text, encoding="utf-8")
     return SavedModel(estimator, card, model_path, card_path)
 
 

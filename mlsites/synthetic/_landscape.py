@@ -11,7 +11,6 @@ from __future__ import annotations
 import json
 import math
 import numbers
-import os
 from dataclasses import dataclass
 from pathlib import Path
 from types import MappingProxyType
@@ -24,6 +23,7 @@ from rasterio.crs import CRS
 from rasterio.windows import Window
 
 from mlsites import __version__
+from mlsites._files import replacing
 from mlsites.errors import CRSError, InputError, OutputExistsError
 from mlsites.grid import GridSpec, RasterWriter, bounded_gdal_cache
 from mlsites.synthetic._kernels import channel_fields, fbm_grid
@@ -341,13 +341,8 @@ class Landscape:
         with RasterWriter(paths["soil"], self.grid, dtype=np.uint8, nodata=0, categorical=True,
                           description="soil", tags=_layer_tags(self.params, "soil", **soil_tags)) as w:
             w.write(self.soil)
-        tmp = directory / ".streams.partial.gpkg"
-        tmp.unlink(missing_ok=True)
-        try:
+        with replacing(paths["streams"]) as tmp:
             self.channels.to_file(tmp, layer="streams", driver="GPKG")
-            os.replace(tmp, paths["streams"])
-        finally:
-            tmp.unlink(missing_ok=True)
         return paths
 
 
