@@ -274,6 +274,7 @@ def sample_experiment(path, *, out_dir=None, fresh=False, quiet=False, log=None)
         Before anything is written to ``out_dir``.
     """
     from mlsites.experiment._config import Experiment, load_experiment
+    from mlsites.experiment._samples import publish_samples
     from mlsites.grid import read_grid
 
     log = _Log(log)
@@ -291,10 +292,7 @@ def sample_experiment(path, *, out_dir=None, fresh=False, quiet=False, log=None)
     try:
         for p in folder.iterdir():
             shutil.copy2(p, staging / p.name)
-        for p in staging.iterdir():
-            os.replace(p, out_dir / p.name)
-        if not (folder / "blocks.gpkg").exists():
-            (out_dir / "blocks.gpkg").unlink(missing_ok=True)
+        publish_samples(staging, out_dir)
     finally:
         shutil.rmtree(staging, ignore_errors=True)
     return _load_sample_set(out_dir)

@@ -287,10 +287,25 @@ def _write_outputs(out_dir: Path, table, blocks, dropped, summary):
             table[["sample_id", "fold"]].to_csv(staging / "folds.csv", index=False)
         dropped.to_csv(staging / "dropped_records.csv", index=False)
         (staging / "sampling.json").write_text(json.dumps(summary, indent=2, default=str))
-        for name in ("blocks.gpkg", "folds_meta.json"):
-            if (out_dir / name).exists() and not (staging / name).exists():
-                (out_dir / name).unlink()
-        for p in staging.iterdir():
-            os.replace(p, out_dir / p.name)
+        publish_samples(staging, out_dir)
     finally:
         shutil.rmtree(staging, ignore_errors=True)
+
+
+#: Files a sample folder may hold; blocks and fold metadata only for block folds.
+SAMPLE_FILES = ("samples.parquet", "folds.csv", "blocks.gpkg", "folds_meta.json", "dropped_records.csv",
+                "sampling.json")
+
+
+def publish_samples(staging: Path, out_dir: Path):
+    """Move the sample files of ``staging`` into ``out_dir``, removing stale ones.
+
+    A file an earlier table had but this one has not (blocks of a block method
+    after a switch to random folds) is removed first, so the folder never mixes two
+    tables.
+    """
+    for name in SAMPLE_FILES:
+        if not (staging / name).exists():
+            (out_dir / name).unlink(missing_ok=True)
+    for p in staging.iterdir():
+        os.replace(p, out_dir / p.name)
