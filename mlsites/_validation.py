@@ -5,9 +5,11 @@ from __future__ import annotations
 import math
 import numbers
 
+import numpy as np
+
 from mlsites.errors import InputError
 
-__all__ = ["check_cell_pair"]
+__all__ = ["check_cell_pair", "masked_as_nan"]
 
 
 def check_cell_pair(cellsize, *, hint: str = "") -> tuple[float, float]:
@@ -45,3 +47,14 @@ def check_cell_pair(cellsize, *, hint: str = "") -> tuple[float, float]:
             "values, e.g. (abs(transform.a), abs(transform.e))"
         )
     return dx, dy
+
+
+def masked_as_nan(array):
+    """A masked array with its masked cells as NaN (float64); anything else unchanged.
+
+    Kernels see plain arrays, so a mask would otherwise be dropped and the values
+    under it used as data.
+    """
+    if isinstance(array, np.ma.MaskedArray):
+        return np.ma.filled(array.astype(np.float64), np.nan)
+    return array

@@ -30,6 +30,7 @@ import numbers
 
 import numpy as np
 
+from mlsites._validation import masked_as_nan
 from mlsites.errors import InputError, InsufficientDataError
 from mlsites.terrain import _kernels
 
@@ -65,7 +66,7 @@ def _check_dem(dem, *, keep_float32=False):
     the speed path); the other kernels are compiled for float64 only, which halves
     their compile time at the cost of a copy.
     """
-    arr = np.asarray(dem)
+    arr = np.asarray(masked_as_nan(dem))
     if arr.ndim != 2:
         raise InputError(
             f"dem has {arr.ndim} dimension(s) with shape {arr.shape}; a 2-D elevation "

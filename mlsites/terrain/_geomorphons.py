@@ -13,7 +13,7 @@ from types import MappingProxyType
 import numpy as np
 
 from mlsites._numba import pjit, prange
-from mlsites._validation import check_cell_pair
+from mlsites._validation import check_cell_pair, masked_as_nan
 from mlsites.errors import InputError
 
 __all__ = ["geomorphons", "LANDFORM_CLASSES"]
@@ -155,9 +155,7 @@ def _check_int(name, value, minimum):
 
 
 def _check_dem(dem):
-    if isinstance(dem, np.ma.MaskedArray):
-        dem = np.ma.filled(dem.astype(np.float64), np.nan)
-    dem = np.asarray(dem)
+    dem = np.asarray(masked_as_nan(dem))
     if dem.ndim != 2:
         raise InputError(
             f"dem has {dem.ndim} dimension(s) (shape {dem.shape}); a 2-D array "

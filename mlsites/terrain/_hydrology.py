@@ -16,7 +16,7 @@ import numbers
 
 import numpy as np
 
-from mlsites._validation import check_cell_pair
+from mlsites._validation import check_cell_pair, masked_as_nan
 from mlsites.errors import GridMismatchError, InputError
 from mlsites.terrain import _hydro_kernels as _k
 
@@ -55,8 +55,8 @@ def _check_cellsize(cellsize):
 
 
 def _check_grid(array, name):
-    """Return ``array`` as a non-empty 2-D ndarray (no copy)."""
-    a = np.asarray(array)
+    """Return ``array`` as a non-empty 2-D ndarray (no copy; masked cells become NaN)."""
+    a = np.asarray(masked_as_nan(array))
     if a.ndim != 2 or a.size == 0:
         raise InputError(f"{name} has shape {a.shape}; a non-empty 2-D grid (rows, cols) is needed")
     if a.size > _MAX_CELLS:

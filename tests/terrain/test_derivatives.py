@@ -642,3 +642,18 @@ def test_bad_arguments_raise():
     with pytest.raises(InputError, match="out must be"):
         same = np.empty((5, 5))
         slope_aspect(dem, 1.0, out=(same, same))
+
+
+@pytest.mark.parametrize("layer", ["slope", "tpi", "fill"])
+def test_masked_array_mask_is_nodata(layer):
+    # A numpy masked array's mask must act as nodata, exactly like NaN (brief: never
+    # use hidden values as data). Reference: the same call with NaN in the masked cells.
+    from mlsites.terrain import fill_depressions, slope, tpi
+
+    rng = np.random.default_rng(5)
+    z = rng.normal(size=(12, 14)) * 10
+    mask = np.zeros(z.shape, bool)
+    mask[5:7, 6:8] = True
+    f = {"slope": lambda a: slope(a, 10.0), "tpi": lambda a: tpi(a, 10.0, radius=25.0),
+         "fill": lambda a: fill_depressions(a)}[layer]
+    np.testing.assert_array_equal(f(np.ma.array(z, mask=mask)), f(np.where(mask, np.nan, z)))
