@@ -274,7 +274,12 @@ class RasterWriter(contextlib.AbstractContextManager):
         arr = np.asarray(array)
         if self.dtype.kind != "f" and arr.dtype.kind == "f":
             bad = np.isnan(arr)
-            arr = np.where(bad, self.nodata if self.nodata is not None else 0, arr)
+            if bad.any() and self.nodata is None:
+                raise InputError(
+                    f"{self.path.name}: {int(bad.sum())} NaN cell(s) cannot be stored in a {self.dtype} "
+                    "raster without a nodata value; give the writer a nodata value"
+                )
+            arr = np.where(bad, self.nodata, arr)
         self._ds.write(arr.astype(self.dtype, copy=False), 1, window=window)
 
     def _finish(self):

@@ -118,15 +118,15 @@ class GridSpec:
         cols = np.asarray(cols)
         return (rows >= 0) & (rows < self.height) & (cols >= 0) & (cols < self.width)
 
-    def cellsize(self):
+    def cellsize(self, rows=None):
         """Cell size in metres in the form the terrain kernels take.
 
         A float for square projected cells, ``(dx, dy)`` for rectangular ones and
         per-row arrays ``(dx_rows, dy_rows)`` for geographic grids (see
-        :func:`metric_cell_sizes`).
+        :func:`metric_cell_sizes`; ``rows`` picks the rows, halo rows included).
         """
         if self.is_geographic:
-            return metric_cell_sizes(self)
+            return metric_cell_sizes(self, rows)
         unit = self._linear_unit_m()
         dx, dy = self.res[0] * unit, self.res[1] * unit
         return float(dx) if dx == dy else (float(dx), float(dy))

@@ -27,7 +27,6 @@ from mlsites import __version__
 from mlsites._validation import check_cell_pair
 from mlsites.errors import CRSError, InputError, OutputExistsError, VectorReadError
 from mlsites.grid import AlignedRaster, GridSpec, RasterWriter, bounded_gdal_cache, iter_windows, read_grid
-from mlsites.grid._spec import metric_cell_sizes
 
 __all__ = [
     "LOCAL_LAYERS",
@@ -200,12 +199,6 @@ def _halo(names: list[str], settings: TerrainSettings, grid: GridSpec) -> int:
         elif n == "landform":
             halo = max(halo, settings.landform_lookup_cells)
     return halo
-
-
-def _window_cellsize(grid: GridSpec, row0: int, nrows: int):
-    if grid.is_geographic:
-        return metric_cell_sizes(grid, np.arange(row0, row0 + nrows))
-    return grid.cellsize()
 
 
 def _local_layer(name, block, cellsize, settings, memo):
@@ -413,7 +406,8 @@ def _run_local(dem, grid, names, settings, staging, quiet, log):
         bar = stack.enter_context(_progress(len(windows), "local terrain layers", quiet))
         for w in windows:
             block = dem.read(w.padded)
-            cellsize = _window_cellsize(grid, int(w.padded.row_off), int(w.padded.height))
+            row0 = int(w.padded.row_off)
+            cellsize = grid.cellsize(np.arange(row0, row0 + int(w.padded.height)))
             memo = {}
             for n, writer in writers.items():
                 t0 = time.perf_counter()
@@ -475,8 +469,8 @@ def _run_whole(dem, grid, names, settings, vectors, staging, quiet, log):
         t.hydrology_layers(dem.read(), cellsize, stream_threshold_km2=settings.stream_threshold_km2,
                            wanted={k for k, v in layer_of.items() if v in hydro}, on_layer=write)
         seconds = time.perf_counter() - t0
-        for name in hydro:
-            info[name] = _layer_info(name, {}, seconds / len(hydro), grid)
+        for name in hydro:  # one chain: the time is that of all of them together
+            info[name] = _layer_info(name, {"timed_together_with": hydro}, seconds, grid)
         log(f"hydrology ({', '.join(hydro)}): {seconds:.1f} s")
     nodata = None  # the DEM's nodata cells, read once for all vector layers
     for vname, path in vectors.items():

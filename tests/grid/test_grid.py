@@ -169,3 +169,18 @@ def test_read_errors(tmp_path, metric_grid):
     write_array(tmp_path / "nocrs.tif", np.zeros((5, 5), np.float32), no_crs)
     with pytest.raises(CRSError, match="no CRS"):
         read_grid(tmp_path / "nocrs.tif")
+
+
+def test_grid_dict_roundtrip(metric_grid):
+    # Model cards and manifests store grids as plain dicts (to_dict); they must come back equal.
+    assert GridSpec.from_dict(metric_grid.to_dict()).same_as(metric_grid)
+
+
+def test_integer_raster_without_nodata_refuses_nan(tmp_path, metric_grid):
+    # A NaN written to an integer file without nodata would silently become data.
+    a = np.zeros(metric_grid.shape)
+    a[0, 0] = np.nan
+    with pytest.raises(InputError, match="NaN"):
+        with RasterWriter(tmp_path / "codes.tif", metric_grid, dtype=np.uint8) as w:
+            w.write(a)
+    assert list(tmp_path.iterdir()) == []
