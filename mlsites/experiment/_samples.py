@@ -246,8 +246,6 @@ def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, l
     check_n_splits(len(after), exp["folds"]["n_splits"], source=str(s["path"]))
     pmask = table["label"] == 1
     table.loc[pmask, "weight"] = 1.0 / table[pmask].groupby("site_id")["site_id"].transform("size")
-    if sa["one_cell_per_site"]:
-        table.loc[pmask, "weight"] = 1.0
     n_bg = int((~pmask).sum())
     if n_bg == 0:
         raise InsufficientDataError("no background cell has values in every layer; check the input layers")
@@ -263,7 +261,7 @@ def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, l
         "n_presence_cells": int(pmask.sum()), "n_background_cells": n_bg,
         "removed": counts, "folds": fold_info, "features": names, "categorical": categorical,
         "fold_table": table.groupby("fold").agg(n_samples=("label", "size"), n_presence_cells=("label", "sum"),
-                                                n_sites=("site_id", lambda v: int((v != "").sum() and v[v != ""].nunique())))
+                                                n_sites=("site_id", lambda v: v[v != ""].nunique()))
                            .reset_index().to_dict(orient="records"),
         "seconds": round(time.perf_counter() - t0, 2),
     }
