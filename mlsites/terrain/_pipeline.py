@@ -266,17 +266,20 @@ class _Stats:
         self.min, self.max = math.inf, -math.inf
 
     def add(self, arr):
-        a = np.asarray(arr, dtype=np.float64)
-        valid = ~np.isnan(a)
-        n = int(valid.sum())
+        from mlsites.terrain._kernels import _row_moments_kernel
+
+        n_rows = arr.shape[0]
+        sums, squares, lows, highs = (np.empty(n_rows) for _ in range(4))
+        counts = np.empty(n_rows, dtype=np.int64)
+        _row_moments_kernel(arr, sums, squares, counts, lows, highs)
+        n = int(counts.sum())
         if n == 0:
             return
-        a0 = np.where(valid, a, 0.0)
-        self.sums.extend(a0.sum(axis=1).tolist())
-        self.squares.extend((a0 * a0).sum(axis=1).tolist())
+        self.sums.extend(sums.tolist())
+        self.squares.extend(squares.tolist())
         self.count += n
-        self.min = min(self.min, float(np.nanmin(a)))
-        self.max = max(self.max, float(np.nanmax(a)))
+        self.min = min(self.min, float(np.nanmin(lows)))
+        self.max = max(self.max, float(np.nanmax(highs)))
 
     def summary(self):
         if self.count == 0:

@@ -97,6 +97,22 @@ def test_outputs_are_tiled_compressed_with_metadata(tmp_path, dem_file):
     assert not [p for p in (tmp_path / "o").iterdir() if p.name.startswith(".")]
 
 
+def test_layer_statistics_match_numpy_over_any_windows(tmp_path, dem_file):
+    # terrain.json statistics of a layer equal NumPy's over the whole file (float64
+    # nanmean / nanstd with ddof 0 / nanmin / nanmax, the reference), for windows of
+    # 1, 13 and all rows.
+    for rows in (1, 13, 90):
+        summary = compute_terrain(dem_file, tmp_path / f"s{rows}", TerrainSettings(layers=("slope", "tpi"),
+                                  tpi_radii_m=(30.0,), block_rows=rows), quiet=True)
+        for name in ("slope", "tpi_30m"):
+            values = terrain.slope(read_array(dem_file, dtype=np.float64), 10.0) if name == "slope" else \
+                terrain.tpi(read_array(dem_file, dtype=np.float64), 10.0, radius=30.0)
+            got = summary["layers"][name]
+            assert got["valid_cells"] == int(np.count_nonzero(~np.isnan(values)))
+            for key, ref in (("mean", np.nanmean), ("std", np.nanstd), ("min", np.nanmin), ("max", np.nanmax)):
+                assert got[key] == pytest.approx(ref(values), rel=1e-12, abs=1e-12), (rows, name, key)
+
+
 def test_flat_cells_marked_in_aspect_file(tmp_path):
     # A plateau (constant block) inside a plane: aspect is undefined on the plateau
     # (METHODS.md §1, constant window) and the file marks it -1, not nodata.
