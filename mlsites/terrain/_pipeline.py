@@ -239,7 +239,7 @@ def _local_layer(name, block, cellsize, settings, memo):
     raise AssertionError(name)
 
 
-def _writer_for(path, grid, name):
+def _writer_for(path, grid, name, *, max_pending=1):
     dtype, nodata = _INT_LAYERS.get(name, (np.float32, None))
     tags = {}
     if name == "landform":
@@ -255,7 +255,7 @@ def _writer_for(path, grid, name):
     about, units = {**LOCAL_LAYERS, **WHOLE_GRID_LAYERS}[key]
     tags.update(layer=name, description=about, units=units, software=f"mlsites {__version__}")
     return RasterWriter(path, grid, dtype=dtype, nodata=nodata, tags=tags, description=name,
-                        categorical=name in _INT_LAYERS)
+                        categorical=name in _INT_LAYERS, max_pending=max_pending)
 
 
 class _Stats:
@@ -492,7 +492,9 @@ def _run_whole(dem, grid, names, settings, vectors, staging, quiet, log):
 
 
 def _write_whole(staging, grid, name, array):
-    with _writer_for(staging / f"{name}.tif", grid, name) as w:
+    # Written in this thread: a queued copy of a whole grid would raise the
+    # hydrology chain's bytes per cell.
+    with _writer_for(staging / f"{name}.tif", grid, name, max_pending=0) as w:
         w.write(array)
 
 

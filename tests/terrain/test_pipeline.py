@@ -86,7 +86,7 @@ def test_outputs_are_tiled_compressed_with_metadata(tmp_path, dem_file):
     compute_terrain(dem_file, tmp_path / "o", TerrainSettings(layers=("slope", "landform", "streams"),
                                                               landform_lookup_cells=5), quiet=True)
     with rasterio.open(tmp_path / "o" / "slope.tif") as ds:
-        assert ds.profile["tiled"] and ds.profile["compress"] == "deflate" and np.isnan(ds.nodata)
+        assert ds.profile["tiled"] and ds.profile["compress"] == "zstd" and np.isnan(ds.nodata)
         assert ds.tags()["units"] == "degrees"
     with rasterio.open(tmp_path / "o" / "landform.tif") as ds:
         tags = ds.tags()
