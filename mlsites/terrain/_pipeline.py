@@ -201,17 +201,25 @@ def _halo(names: list[str], settings: TerrainSettings, grid: GridSpec) -> int:
     return halo
 
 
-def _local_layer(name, block, cellsize, settings, memo):
+def _local_layer(name, block, cellsize, settings, memo, scratch=None):
     """Compute one local layer on a padded block (the caller trims the halo).
 
     ``memo`` is a dict shared by the layers of one block, so slope and aspect come
-    from a single Horn pass.
+    from a single Horn pass. ``scratch`` (a dict kept across blocks) lends the Horn
+    pass the output arrays of the previous block of the same shape: touching fresh
+    memory costs more than the kernel. The writer copies what it queues, so
+    reusing them is safe.
     """
     from mlsites import terrain as t
 
     if name in ("slope", "aspect"):
         if "horn" not in memo:
-            slope_deg, aspect_deg = t.slope_aspect(block, cellsize)
+            out = None
+            if scratch is not None:
+                out = scratch.get("horn")
+                if out is None or out[0].shape != block.shape:
+                    out = scratch["horn"] = (np.empty(block.shape), np.empty(block.shape))
+            slope_deg, aspect_deg = t.slope_aspect(block, cellsize, out=out)
             # Flat cells have no aspect; the file marks them FLAT_ASPECT so a GIS
             # user can tell them from nodata.
             aspect_deg[np.isnan(aspect_deg) & ~np.isnan(slope_deg)] = FLAT_ASPECT
@@ -407,6 +415,7 @@ def _run_local(dem, grid, names, settings, staging, quiet, log):
     with contextlib.ExitStack() as stack:
         writers = {n: stack.enter_context(_writer_for(staging / f"{n}.tif", grid, n)) for n in raw}
         bar = stack.enter_context(_progress(len(windows), "local terrain layers", quiet))
+        scratch = {}
         for w in windows:
             block = dem.read(w.padded)
             row0 = int(w.padded.row_off)
@@ -414,7 +423,7 @@ def _run_local(dem, grid, names, settings, staging, quiet, log):
             memo = {}
             for n, writer in writers.items():
                 t0 = time.perf_counter()
-                out = _local_layer(n, block, cellsize, settings, memo)[w.trim]
+                out = _local_layer(n, block, cellsize, settings, memo, scratch)[w.trim]
                 seconds[n] += time.perf_counter() - t0
                 if n != "landform":
                     stats[n].add(out)
