@@ -221,6 +221,9 @@ CODECS = {
 }
 
 _STOP = object()
+#: Overview builds running at once, over all writers: each holds chunks of several
+#: full-width rows, so a stage finishing a dozen layers together stays bounded.
+_OVERVIEW_BUILDS = threading.Semaphore(max(1, os.cpu_count() or 1))
 
 
 @functools.lru_cache(maxsize=None)
@@ -246,7 +249,8 @@ class RasterWriter(contextlib.AbstractContextManager):
     window while the previous one is compressed and written (GDAL releases the
     GIL while it encodes and writes). :meth:`write` returns as soon as the array
     is queued; it blocks only while ``max_pending`` windows are still waiting,
-    which bounds the memory to that many windows per writer.
+    which bounds the memory to that many windows per writer. Leaving the context
+    waits for the thread, so the file is complete (or removed) when it returns.
 
     Parameters
     ----------
@@ -282,34 +286,40 @@ class RasterWriter(contextlib.AbstractContextManager):
     Notes
     -----
     Files are zstd-compressed at level 1 in 256 x 256 tiles without a predictor,
-    compressed on all cores (GDAL ``NUM_THREADS``); overviews are built by GDAL
-    from the finished file (average over valid cells, or nearest for categorical
-    layers), with ``GDAL_NUM_THREADS=ALL_CPUS`` unless the user set it. What each
-    choice buys, from ``tests/benchmarks/raster_writer.py`` on a 4000 x 4000
-    grid (CPU seconds on one thread to write the file with its overviews and to
-    read it back; size with overviews; slope / DEM where they differ):
+    compressed on all cores (GDAL ``NUM_THREADS``). Overviews are built by GDAL
+    (average over valid cells, or nearest for categorical layers) in the
+    background thread once the writes have covered as many cells as the grid
+    has, so writers that finish together build them at the same time (as many at
+    once as there are cores); windows that overlap make them stale and they are
+    built again when the context exits. What each choice buys, from
+    ``tests/benchmarks/raster_writer.py`` on a 4000 x 4000 grid (CPU seconds on
+    one thread to write the file with its overviews and to read it back; size
+    with overviews; slope / DEM where they differ):
 
-    ======================  ===========  ========  ===========
-    options                 write CPU s  read CPU  MB
-    ======================  ===========  ========  ===========
-    no compression          0.22         0.03      85 / 85
-    zstd 1 (used)           0.45 / 0.38  0.08      71.5 / 66.6
-    zstd 1, predictor 3     0.87 / 0.93  0.14      66.1 / 50.9
-    deflate 1               1.33 / 1.30  0.18      71.3 / 66.4
-    deflate 1, predictor 3  1.58 / 1.27  0.24      67.2 / 50.7
-    deflate 6, predictor 3  2.64 / 2.34  0.23      65.9 / 49.9
-    lzw, predictor 3        1.80 / 1.68  0.29      88.5 / 65.4
-    ======================  ===========  ========  ===========
+    ======================  ===========  ===========  ===========
+    options                 write CPU s  read CPU s   MB
+    ======================  ===========  ===========  ===========
+    no compression          0.19 / 0.24  0.03         85 / 85
+    zstd 1 (used)           0.41 / 0.39  0.08 / 0.06  71.5 / 66.6
+    zstd 1, predictor 3     0.75 / 0.82  0.12 / 0.15  66.1 / 50.9
+    deflate 1               1.14 / 1.34  0.16 / 0.20  71.3 / 66.4
+    deflate 1, predictor 3  1.38 / 1.21  0.23 / 0.20  67.2 / 50.7
+    deflate 6, predictor 3  2.32 / 2.19  0.21 / 0.19  65.9 / 49.9
+    lzw, predictor 3        1.66 / 1.62  0.25 / 0.26  88.5 / 65.4
+    ======================  ===========  ===========  ===========
 
     Slopes and aspects barely compress (16 % whatever the codec), so the codec
-    is chosen for speed: zstd writes three times and reads twice as fast as
-    deflate for the same size. The floating-point predictor saves 6 % on slopes
-    and 24 % on a smooth DEM at twice the cost of every write and read; 512 x 512
-    tiles change nothing measurable; on a class layer (uint8) zstd is 6 % smaller
-    than deflate and predictor 2 makes files larger. Overviews are two thirds of
-    the write time; decimating each window in NumPy as it is written and writing
-    the levels separately costs the same (0.45 s), so GDAL builds them (rasterio
-    cannot write to the overview levels of an open file anyway).
+    is chosen for speed: zstd writes about three times and reads about twice as
+    fast as deflate for the same size. The floating-point predictor saves 6 % on
+    slopes and 24 % on a smooth DEM at twice the cost of every write and read;
+    512 x 512 tiles change nothing measurable; on a class layer (uint8) zstd is
+    6 % smaller than deflate and predictor 2 makes files larger. Overviews are
+    two thirds of the write time. Decimating each window as it is written (a
+    numba 2 x 2 mean) and compressing the levels would cost 0.23-0.30 s instead
+    of 0.41, but rasterio cannot write into the overview levels of an open file
+    (only GDAL's C API can), and on sizes not divisible by two GDAL's own
+    overviews scale their windows by ``W / ceil(W / 2)`` and differ from 2 x 2
+    block means; so GDAL builds them, off the caller's thread.
 
     zstd in GeoTIFF is read by every GDAL built with libzstd (GDAL 2.3 and
     later): rasterio's wheels, conda-forge, the Debian and Ubuntu packages and
@@ -380,6 +390,8 @@ class RasterWriter(contextlib.AbstractContextManager):
             self._ds.set_band_description(1, description)
         self._error: BaseException | None = None
         self._cancelled = False
+        self._cells_written = 0
+        self._overviews_built = False
         self._thread = None
         if max_pending:
             self._slots = threading.Semaphore(max_pending)
@@ -396,7 +408,7 @@ class RasterWriter(contextlib.AbstractContextManager):
         self._raise_pending()
         arr = self._prepare(array)
         if self._thread is None:
-            self._ds.write(arr, 1, window=window)
+            self._write_now(arr, window)
             return
         if isinstance(array, np.ndarray) and np.may_share_memory(arr, array):
             arr = arr.copy()
@@ -418,6 +430,28 @@ class RasterWriter(contextlib.AbstractContextManager):
             arr = np.where(bad, self.nodata, arr)
         return arr.astype(self.dtype, copy=False)
 
+    def _write_now(self, arr, window):
+        self._ds.write(arr, 1, window=window)
+        # Once as many cells as the grid has are written, the overviews are built
+        # here (in the writer's thread), so several writers finishing together
+        # build theirs at the same time. A later write (windows that overlap)
+        # makes them stale and they are built again at the end.
+        covered_before = self._cells_written >= self.grid.n_cells
+        self._overviews_built = False
+        self._cells_written += arr.size
+        if not covered_before and self._cells_written >= self.grid.n_cells:
+            self._build_overviews()
+
+    def _build_overviews(self):
+        factors, f = [], 2
+        while self.overviews and max(self.grid.shape) / f >= 256:
+            factors.append(f)
+            f *= 2
+        if factors:
+            with _OVERVIEW_BUILDS:
+                self._ds.build_overviews(factors, Resampling.nearest if self.categorical else Resampling.average)
+        self._overviews_built = True
+
     def _drain(self):
         # The background thread owns the dataset between the first write and
         # close; after a failure it keeps taking items (without writing) so a
@@ -428,7 +462,7 @@ class RasterWriter(contextlib.AbstractContextManager):
                 return
             try:
                 if self._error is None and not self._cancelled:
-                    self._ds.write(item[0], 1, window=item[1])
+                    self._write_now(*item)
             except BaseException as exc:  # handed to the caller's thread
                 self._error = exc
             finally:
@@ -446,17 +480,11 @@ class RasterWriter(contextlib.AbstractContextManager):
     def _finish(self):
         self._stop_thread()
         self._raise_pending()
-        if self.overviews:
-            factors = []
-            f = 2
-            while max(self.grid.shape) / f >= 256:
-                factors.append(f)
-                f *= 2
-            if factors:
-                resampling = Resampling.nearest if self.categorical else Resampling.average
-                with _overview_threads():
-                    self._ds.build_overviews(factors, resampling)
-                self._ds.update_tags(ns="rio_overview", resampling=resampling.name)
+        if not self._overviews_built:
+            self._build_overviews()
+        if self._ds.overviews(1):
+            resampling = Resampling.nearest if self.categorical else Resampling.average
+            self._ds.update_tags(ns="rio_overview", resampling=resampling.name)
         self._ds.close()
         os.replace(self._tmp, self.path)
 
@@ -479,14 +507,6 @@ class RasterWriter(contextlib.AbstractContextManager):
         else:
             self.abort()
         return False
-
-
-def _overview_threads():
-    """Let GDAL compute overviews on all cores, unless the user chose a thread count."""
-    options = rasterio.env.getenv() if rasterio.env.hasenv() else {}
-    if "GDAL_NUM_THREADS" in os.environ or "GDAL_NUM_THREADS" in options:
-        return contextlib.nullcontext()
-    return rasterio.Env(GDAL_NUM_THREADS="ALL_CPUS")
 
 
 def write_array(path, array: np.ndarray, grid: GridSpec, **kwargs):

@@ -205,3 +205,21 @@ def test_gdal_without_zstd_writes_deflate_and_says_so(tmp_path, monkeypatch):
         path = write_array(tmp_path / "f.tif", _float_layer(), GRID)
     with rasterio.open(path) as ds:
         assert ds.compression.name.lower() == "deflate"
+
+
+@pytest.mark.parametrize("max_pending", [0, 2])
+def test_rewritten_windows_rebuild_overviews(tmp_path, max_pending):
+    # Overviews are built once the grid is covered; writing again afterwards (here the
+    # whole grid a second time, then one window a third time) must not leave them stale.
+    a, b = _float_layer(seed=4), _float_layer(seed=5)
+    final = b.copy()
+    final[:64] = a[:64]
+    reference = write_array(tmp_path / "ref.tif", final, GRID)
+    with RasterWriter(tmp_path / "re.tif", GRID, max_pending=max_pending) as w:
+        for arr in (a, b):
+            for win in iter_windows(GRID, block_rows=128):
+                r0 = int(win.core.row_off)
+                w.write(arr[r0 : r0 + int(win.core.height)], win.core)
+        w.write(a[:64], Window(0, 0, GRID.width, 64))
+    for level, (e, g) in enumerate(zip(_levels(reference), _levels(tmp_path / "re.tif"))):
+        _assert_bit_equal(g, e, f"level {level}")
