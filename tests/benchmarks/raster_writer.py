@@ -23,14 +23,14 @@ machine). Run: ``python tests/benchmarks/raster_writer.py [--size 4000]``.
 import argparse
 import json
 import os
-import tempfile
 import time
-from pathlib import Path
 
 import numba
 import numpy as np
 import rasterio
 from rasterio.enums import Resampling
+
+from terrain import best_of, generated_dem  # the sibling script in this folder
 
 CANDIDATES = {
     "deflate1": dict(compress="deflate", ZLEVEL=1),
@@ -54,13 +54,8 @@ def _factors(shape):
     return out
 
 
-def _cpu(fn, repeat=2):
-    best = float("inf")
-    for _ in range(repeat):
-        t0 = time.process_time()
-        fn()
-        best = min(best, time.process_time() - t0)
-    return best
+def _cpu(fn):
+    return best_of(fn, repeat=2, clock=time.process_time)
 
 
 @numba.njit(cache=True, nogil=True)
@@ -102,16 +97,12 @@ def main():
     ap.add_argument("--workdir", default=None)
     args = ap.parse_args()
 
+
     from mlsites import terrain
     from mlsites.grid import read_array
-    from mlsites.synthetic import write_landscape_dem
 
-    work = Path(args.workdir or tempfile.mkdtemp(prefix="mlsites-writer-"))
-    work.mkdir(parents=True, exist_ok=True)
     n = args.size
-    dem_path = work / f"dem_{n}.tif"
-    if not dem_path.exists():
-        write_landscape_dem(dem_path, (n, n), cellsize=10.0, random_state=1)
+    work, dem_path = generated_dem(args.workdir, n, prefix="mlsites-writer-")
     dem = read_array(dem_path)
     slope, aspect = terrain.slope_aspect(dem, 10.0)
     layers = {"slope": slope.astype(np.float32), "aspect": aspect.astype(np.float32), "dem": dem,
@@ -155,16 +146,8 @@ def main():
             rows["incremental_overviews_estimate"] = {"write_cpu_s": round(_cpu(incremental), 3)}
             with rasterio.Env(GDAL_NUM_THREADS="ALL_CPUS"):
                 prof_all = _profile(grid_like, CANDIDATES[CHOSEN], threads="ALL_CPUS", dtype=arr.dtype.name)
-                best = float("inf")
-                for _ in range(3):
-                    t0 = time.perf_counter()
-                    _write(path, arr, prof_all)
-                    best = min(best, time.perf_counter() - t0)
-                one = float("inf")
-                for _ in range(3):
-                    t0 = time.perf_counter()
-                    _write(path, arr, prof)
-                    one = min(one, time.perf_counter() - t0)
+                best = best_of(lambda: _write(path, arr, prof_all))
+                one = best_of(lambda: _write(path, arr, prof))
             rows[CHOSEN + "_threads"] = {"one_thread_wall_s": round(one, 3), "all_cores_wall_s": round(best, 3)}
             result["layers"][lname] = rows
     print(json.dumps(result))
