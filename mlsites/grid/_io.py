@@ -466,6 +466,9 @@ class RasterWriter(contextlib.AbstractContextManager):
             except BaseException as exc:  # handed to the caller's thread
                 self._error = exc
             finally:
+                # Drop the window before waiting for the next one, or each writer
+                # would hold one more window than max_pending.
+                del item
                 self._slots.release()
 
     def _stop_thread(self):

@@ -1,9 +1,11 @@
 """The GeoTIFF writer: windows written in a background thread equal one whole write, bit for bit."""
 
+import gc
 import shutil
 import subprocess
 import threading
 import time
+import weakref
 
 import numpy as np
 import pytest
@@ -134,6 +136,26 @@ def test_queue_holds_at_most_max_pending_windows(tmp_path):
         for win in windows:
             writer.write(np.zeros((int(win.core.height), GRID.width), np.float32), win.core)
     assert len(seen) == len(windows) and max(seen) <= 1  # the one being written plus at most one waiting
+
+
+def test_written_windows_are_released(tmp_path):
+    # Memory bound: once a window is written, the thread keeps no reference to it while
+    # it waits for the next (otherwise every writer holds one window more).
+    writer = RasterWriter(tmp_path / "m.tif", GRID, max_pending=1)
+    real_write, written = writer._ds.write, []
+
+    def recording_write(arr, *args, **kwargs):
+        written.append(weakref.ref(arr))
+        return real_write(arr, *args, **kwargs)
+
+    writer._ds.write = recording_write
+    with writer:
+        writer.write(np.zeros((10, GRID.width)), Window(0, 0, GRID.width, 10))  # cast: the writer's own copy
+        writer._slots.acquire()  # returns once the window is written
+        writer._slots.release()
+        gc.collect()
+        assert len(written) == 1 and written[0]() is None
+        writer.write(np.zeros((GRID.height - 10, GRID.width)), Window(0, 10, GRID.width, GRID.height - 10))
 
 
 @pytest.mark.parametrize("fail_at", [1, 54])
