@@ -405,6 +405,8 @@ class RasterWriter(contextlib.AbstractContextManager):
         With ``max_pending > 0`` the array is cast (or copied) to the file's
         dtype and queued, so the caller may reuse or change its buffer at once.
         """
+        if self._ds.closed:
+            raise ValueError(f"{self.path.name}: the writer is closed; write inside its with block")
         self._raise_pending()
         arr = self._prepare(array)
         if self._thread is None:

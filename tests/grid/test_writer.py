@@ -189,6 +189,13 @@ def test_error_in_caller_stops_the_thread_and_leaves_nothing(tmp_path):
     assert list(tmp_path.iterdir()) == []
 
 
+def test_write_after_close_is_refused(tmp_path):
+    with RasterWriter(tmp_path / "c.tif", GRID) as w:
+        w.write(np.zeros(GRID.shape, np.float32))
+    with pytest.raises(ValueError, match="the writer is closed"):
+        w.write(np.zeros(GRID.shape, np.float32))
+
+
 def test_bad_options(tmp_path):
     with pytest.raises(InputError, match="max_pending=-1"):
         RasterWriter(tmp_path / "a.tif", GRID, max_pending=-1)
