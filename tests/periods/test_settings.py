@@ -70,3 +70,12 @@ def test_bad_span(files, span, fragment):
     with pytest.raises(ConfigError) as err:
         load_experiment(files / "a.toml")
     assert fragment in str(err.value)
+
+
+def test_example_experiment_loads():
+    from pathlib import Path
+
+    folder = Path(__file__).resolve().parents[2] / "experiments"
+    p = load_experiment(folder / "periods.toml")["periods"]
+    assert p["density"] == "trapezoid" and set(p["windows"]) == {"early", "late"}
+    assert load_experiment(folder / "periods.toml")["sites"]["start_field"] == "start_year"  # from demo.toml
