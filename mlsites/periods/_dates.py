@@ -21,6 +21,7 @@ import numpy as np
 import pandas as pd
 
 from mlsites.errors import InputError
+from mlsites.sampling._sites import _clean_ids
 
 __all__ = ["DateRanges", "date_ranges", "check_categories", "check_year_pairs"]
 
@@ -114,19 +115,6 @@ def check_categories(categories, *, end_inclusive=False) -> dict:
     return {str(k).strip(): (float(v[0]), float(v[1])) for k, v in categories.items()}
 
 
-def _text(values) -> np.ndarray:
-    out = np.full(len(values), None, dtype=object)
-    for i, v in enumerate(values):
-        if v is None or (isinstance(v, float) and np.isnan(v)) or v is pd.NA:
-            continue
-        if isinstance(v, (float, np.floating)) and float(v).is_integer():
-            v = int(v)
-        text = str(v).strip()
-        if text:
-            out[i] = text
-    return out
-
-
 def date_ranges(sites, *, start_column="start_year", end_column="end_year", category_column=None,
                 categories=None, end_inclusive=False, source="sites") -> DateRanges:
     """Date range ``[start, end)`` of every site, from its years or its dating category.
@@ -169,7 +157,7 @@ def date_ranges(sites, *, start_column="start_year", end_column="end_year", cate
     its probability at ``start``), unless ``end_inclusive`` makes it one year.
     """
     n = len(sites)
-    ids = _text(sites["site_id"].to_numpy(dtype=object)) if "site_id" in sites else np.arange(n).astype(str)
+    ids = _clean_ids(sites["site_id"]) if "site_id" in sites else np.arange(n).astype(str)
     ids = np.array([str(i) if v is None else v for i, v in enumerate(ids)], dtype=object)
 
     def years(col):
@@ -191,7 +179,7 @@ def date_ranges(sites, *, start_column="start_year", end_column="end_year", cate
             raise InputError(f"{source}: no column {category_column!r} (the category_field); columns found: "
                              f"{', '.join(str(c) for c in sites.columns if c != 'geometry')}")
         table = check_categories(categories or {}, end_inclusive=end_inclusive)
-        cat = _text(sites[category_column].to_numpy(dtype=object))
+        cat = _clean_ids(sites[category_column])  # text, stripped; None when empty
         unmapped = Counter(c for c in cat if c is not None and c not in table)
         if unmapped:
             listed = ", ".join(f"{c!r} ({k} record{'s' if k > 1 else ''})" for c, k in unmapped.most_common())
