@@ -2,7 +2,7 @@
 
 An experiment file has sections of our own naming (``[study]``, ``[inputs]``,
 ``[distances]``, ``[terrain]``, ``[sites]``, ``[sampling]``, ``[folds]``,
-``[learners]``, ``[evaluation]``, ``[outputs]``). Paths are relative to the file
+``[learners]``, ``[evaluation]``, ``[outputs]``, ``[periods]``). Paths are relative to the file
 that names them. ``extends = "base.toml"`` at the top merges the file over a base
 file, so a study keeps one base and many variants. All problems are collected and
 reported together, each with the file, the key (and line where known) and a hint.
@@ -76,6 +76,22 @@ SCHEMA: dict[str, dict[str, tuple]] = {
     "outputs": {
         "runs_dir": (str, "runs", True),
         "models_dir": (str, "models", True),
+    },
+    # Sites with uncertain dates; checked by mlsites.periods._settings.check_periods.
+    "periods": {
+        "block_width_years": (_NUM, 100.0, False),
+        "span": (list, None, False),
+        "origin_year": (_NUM, 0.0, False),
+        "end_inclusive": (bool, False, False),
+        "density": (str, "uniform", False),
+        "ramp_share": (_NUM, 0.25, False),
+        "n_simulations": (int, 1000, False),
+        "bandwidth_m": (_NUM, None, False),
+        "site_squares_m": (_NUM, 1000.0, False),
+        "category_field": (str, None, False),
+        "categories": (dict, {}, False),
+        "windows": (dict, {}, False),
+        "min_probability": (_NUM, 0.1, False),
     },
 }
 #: Sections whose keys are names chosen by the user, each a table of settings.
@@ -334,6 +350,9 @@ def _check_values(s, bad):
     for name in s["inputs"]:
         if name in s["distances"]:
             bad(f"inputs.{name}", "the same name is used in [distances]")
+    from mlsites.periods._settings import check_periods
+
+    check_periods(s["periods"], bad)
 
 
 def load_experiment(path) -> Experiment:
