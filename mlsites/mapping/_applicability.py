@@ -581,7 +581,7 @@ def _fold_splits(folds, n):
     """(train, test) index pairs from fold labels or from given splits."""
     if not isinstance(folds, (np.ndarray, pd.Series, pd.Index)):
         items = list(folds)
-        if items and all(isinstance(s, tuple) and len(s) == 2 for s in items):
+        if items and all(isinstance(s, tuple | list) and len(s) == 2 and np.ndim(s[0]) == 1 for s in items):
             splits = []
             for k, (train, test) in enumerate(items):
                 tr = np.asarray(train, dtype=np.int64).ravel()

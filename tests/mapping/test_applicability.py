@@ -103,17 +103,20 @@ def _brute_force(X, folds, weights, categorical, Xnew, keep=None):
 def _random_case(seed):
     rng = np.random.default_rng(seed)
     n = 240
+    soil = rng.integers(1, 5, size=n)
     X = np.column_stack([
         rng.normal(size=n),
         rng.gamma(2.0, 3.0, size=n),
         rng.uniform(-5, 5, size=n),
-        rng.integers(1, 5, size=n).astype(float),  # categorical, codes 1..4
+        soil.astype(float),  # categorical, codes 1..4
+        ((soil + rng.integers(0, 2, size=n)) % 3).astype(float),  # categorical, 3 codes, tied to soil
     ])
     folds = rng.integers(0, 4, size=n)
     folds[rng.random(n) < 0.1] = -1  # never held out
     Xnew = np.column_stack([
         rng.normal(0, 2, 300), rng.gamma(2.0, 4.0, 300), rng.uniform(-8, 8, 300),
         rng.integers(0, 6, 300).astype(float),  # codes 0 and 5 unseen in training
+        rng.integers(0, 3, 300).astype(float),  # combinations unseen in training
     ])
     Xnew[::37, 1] = np.nan
     return X, folds, Xnew
@@ -123,9 +126,9 @@ def _random_case(seed):
 def test_matches_brute_force_numpy(seed):
     # reference: scipy.spatial.distance.cdist on an explicit one-hot embedding
     X, folds, Xnew = _random_case(seed)
-    weights = [1.5, 0.7, -0.3, 0.8]  # the negative weight must act as 0
-    m = ApplicabilityModel().fit(X, folds, weights=weights, categorical=[3])
-    d_bar, tdi, threshold, di = _brute_force(X, folds, weights, [3], Xnew)
+    weights = [1.5, 0.7, -0.3, 0.8, 2.5]  # the negative weight must act as 0
+    m = ApplicabilityModel().fit(X, folds, weights=weights, categorical=[3, 4])
+    d_bar, tdi, threshold, di = _brute_force(X, folds, weights, [3, 4], Xnew)
     assert m.mean_distance_ == pytest.approx(d_bar, rel=1e-12)
     np.testing.assert_allclose(m.training_dissimilarity_, tdi, rtol=1e-12, atol=1e-15, equal_nan=True)
     assert m.threshold_ == pytest.approx(threshold, rel=1e-12)
@@ -141,13 +144,23 @@ def test_sample_weight_zero_rows_are_left_out():
     sw = np.ones(len(X))
     sw[::5] = 0.0
     sw[1::5] = 3.7  # any positive weight counts the row once
-    m = ApplicabilityModel().fit(X, folds, sample_weight=sw, categorical=[3])
-    d_bar, tdi, threshold, di = _brute_force(X, folds, [1, 1, 1, 1], [3], Xnew, keep=sw > 0)
+    m = ApplicabilityModel().fit(X, folds, sample_weight=sw, categorical=[3, 4])
+    d_bar, tdi, threshold, di = _brute_force(X, folds, [1, 1, 1, 1, 1], [3, 4], Xnew, keep=sw > 0)
     assert m.n_reference_ == int((sw > 0).sum())
     assert m.mean_distance_ == pytest.approx(d_bar, rel=1e-12)
     np.testing.assert_allclose(m.training_dissimilarity_, tdi, rtol=1e-12, atol=1e-15, equal_nan=True)
     assert m.threshold_ == pytest.approx(threshold, rel=1e-12)
     np.testing.assert_allclose(m.dissimilarity(Xnew), di, rtol=1e-12, atol=1e-15, equal_nan=True)
+
+
+def test_categorical_only_matches_brute_force():
+    # reference: cdist on the one-hot columns alone
+    X, folds, Xnew = _random_case(11)
+    m = ApplicabilityModel().fit(X[:, 3:], folds, weights=[1.0, 0.4], categorical=[0, 1])
+    d_bar, tdi, threshold, di = _brute_force(X[:, 3:], folds, [1.0, 0.4], [0, 1], Xnew[:, 3:])
+    assert m.mean_distance_ == pytest.approx(d_bar, rel=1e-12)
+    assert m.threshold_ == pytest.approx(threshold, rel=1e-12)
+    np.testing.assert_allclose(m.dissimilarity(Xnew[:, 3:]), di, rtol=1e-12, atol=1e-15)
 
 
 def test_splits_with_buffers_match_brute_force():
@@ -176,8 +189,8 @@ def test_fold_labels_equal_their_splits():
     X, folds, Xnew = _random_case(4)
     rows = np.arange(len(X))
     splits = [(rows[folds != k], rows[folds == k]) for k in range(4)]
-    a = ApplicabilityModel().fit(X, folds, categorical=[3])
-    b = ApplicabilityModel().fit(X, splits, categorical=[3])
+    a = ApplicabilityModel().fit(X, folds, categorical=[3, 4])
+    b = ApplicabilityModel().fit(X, splits, categorical=[3, 4])
     np.testing.assert_array_equal(a.training_dissimilarity_, b.training_dissimilarity_)
     assert a.threshold_ == b.threshold_
 
@@ -189,9 +202,9 @@ def test_fold_labels_equal_their_splits():
 def test_invariant_to_common_rescaling_of_weights(factor):
     # METHODS.md §8 [derived]: DI and threshold do not change when all weights scale
     X, folds, Xnew = _random_case(5)
-    w = np.array([1.5, 0.7, 0.2, 0.8])
-    a = ApplicabilityModel().fit(X, folds, weights=w, categorical=[3])
-    b = ApplicabilityModel().fit(X, folds, weights=w * factor, categorical=[3])
+    w = np.array([1.5, 0.7, 0.2, 0.8, 1.1])
+    a = ApplicabilityModel().fit(X, folds, weights=w, categorical=[3, 4])
+    b = ApplicabilityModel().fit(X, folds, weights=w * factor, categorical=[3, 4])
     assert b.threshold_ == pytest.approx(a.threshold_, rel=1e-12)
     np.testing.assert_allclose(b.dissimilarity(Xnew), a.dissimilarity(Xnew), rtol=1e-12, equal_nan=True)
 
@@ -199,10 +212,10 @@ def test_invariant_to_common_rescaling_of_weights(factor):
 def test_chunks_jobs_pickle_and_float32_give_identical_results():
     # equivalences: any chunk size, worker count, a pickled copy, float32 input
     X, folds, Xnew = _random_case(6)
-    a = ApplicabilityModel().fit(X, folds, categorical=[3])
+    a = ApplicabilityModel().fit(X, folds, categorical=[3, 4])
     expected = a.dissimilarity(Xnew)
     for chunk, jobs in ((1, 1), (7, 2), (1000, -1)):
-        b = ApplicabilityModel(n_jobs=jobs, chunk_size=chunk).fit(X, folds, categorical=[3])
+        b = ApplicabilityModel(n_jobs=jobs, chunk_size=chunk).fit(X, folds, categorical=[3, 4])
         np.testing.assert_array_equal(b.dissimilarity(Xnew), expected)
     c = pickle.loads(pickle.dumps(a))
     np.testing.assert_array_equal(c.dissimilarity(Xnew), expected)
@@ -214,13 +227,14 @@ def test_dataframe_columns_by_name():
     # equivalence: DataFrame input with names (weights and categorical by name),
     # columns reordered at prediction time
     X, folds, Xnew = _random_case(7)
-    names = ["height", "slope", "wetness", "soil"]
-    a = ApplicabilityModel().fit(X, folds, weights=[1, 2, 0.5, 1], categorical=[3])
+    names = ["height", "slope", "wetness", "soil", "landform"]
+    a = ApplicabilityModel().fit(X, folds, weights=[1, 2, 0.5, 1, 3], categorical=[3, 4])
     b = ApplicabilityModel().fit(
         pd.DataFrame(X, columns=names), folds,
-        weights={"soil": 1, "slope": 2, "height": 1, "wetness": 0.5}, categorical=["soil"],
+        weights={"soil": 1, "slope": 2, "height": 1, "wetness": 0.5, "landform": 3},
+        categorical=["landform", "soil"],
     )
-    new = pd.DataFrame(Xnew, columns=names)[["soil", "wetness", "height", "slope"]]
+    new = pd.DataFrame(Xnew, columns=names)[["soil", "wetness", "landform", "height", "slope"]]
     np.testing.assert_array_equal(b.dissimilarity(new), a.dissimilarity(Xnew))
     with pytest.raises(InputError, match=r"lacks the predictor column\(s\) \['slope'\]"):
         b.dissimilarity(new.drop(columns="slope"))
@@ -291,10 +305,10 @@ def test_bad_input_messages():
         ApplicabilityModel().fit(X, folds + 0.5)
     with pytest.raises(InsufficientDataError, match="at least two folds"):
         ApplicabilityModel().fit(X, np.zeros(len(X), int))
-    with pytest.raises(InputError, match="expected 4 numbers"):
+    with pytest.raises(InputError, match="expected 5 numbers"):
         ApplicabilityModel().fit(X, folds, weights=[1, 2])
     with pytest.raises(InputError, match="at least one positive weight"):
-        ApplicabilityModel().fit(X, folds, weights=[-1, 0, -2, 0])
+        ApplicabilityModel().fit(X, folds, weights=[-1, 0, -2, 0, 0])
     with pytest.raises(InputError, match="no column names"):
         ApplicabilityModel().fit(X, folds, weights={"a": 1})
     rows = np.arange(len(X))
@@ -305,6 +319,8 @@ def test_bad_input_messages():
     m = ApplicabilityModel().fit(X, folds)
     with pytest.raises(InputError, match="3 predictor column"):
         m.dissimilarity(X[:, :3])
+    with pytest.raises(InputError, match="2-D array"):
+        m.dissimilarity(X[0])
     with pytest.raises(InputError, match="chunk_size=0"):
         ApplicabilityModel(chunk_size=0).fit(X, folds).dissimilarity(X)
 
@@ -314,7 +330,7 @@ def test_constant_predictor_warns_and_is_ignored():
     X = X.copy()
     X[:, 2] = 4.0
     with pytest.warns(DataQualityWarning, match="column 'wetness' is constant"):
-        m = ApplicabilityModel().fit(pd.DataFrame(X, columns=["a", "b", "wetness", "c"]), folds)
+        m = ApplicabilityModel().fit(pd.DataFrame(X, columns=["a", "b", "wetness", "c", "d"]), folds)
     assert m.weights_[2] == 0.0
-    ref = ApplicabilityModel().fit(X, folds, weights=[1, 1, 0, 1])
+    ref = ApplicabilityModel().fit(X, folds, weights=[1, 1, 0, 1, 1])
     np.testing.assert_array_equal(m.dissimilarity(Xnew), ref.dissimilarity(Xnew))
