@@ -176,6 +176,13 @@ class ApplicabilityModel:
     A row with NaN in any predictor gets DI NaN (and is not applicable): the learner
     cannot score it either.
 
+    **Speed** (``tests/benchmarks/applicability.py``): nearest neighbours are exact,
+    and their cost grows steeply with the number of continuous predictors and about
+    with the square root of the number of reference rows. With 20 000 training rows
+    and 10 continuous layers, one idle core scores about 65 000 cells/s (16 million
+    cells in about 2 minutes on 2 cores); two categorical layers (45 combinations)
+    about halve that. Fitting takes about 2 s.
+
     References
     ----------
     Meyer, H. & Pebesma, E. (2021). Predicting into unknown space? Estimating the
