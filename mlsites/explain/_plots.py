@@ -15,8 +15,9 @@ __all__ = ["LEARNER_COLOURS", "LEARNER_MARKERS", "learner_style", "plot_importan
 #: Learner colours, in the order learners are listed (navy, orange, sky, umber, grey).
 LEARNER_COLOURS = ("#17336b", "#d9822b", "#6cb0e0", "#7a4a00", "#9b9b9b")
 LEARNER_MARKERS = ("o", "s", "D", "^", "v")
-_SITE_COLOUR = "#d9822b"
-_LANDSCAPE_COLOUR = "#6cb0e0"
+# data panels in greys, so they are never mistaken for a learner
+_SITE_COLOUR = "#303030"
+_LANDSCAPE_COLOUR = "#c4c4c4"
 
 
 def learner_style(i):
@@ -59,7 +60,7 @@ def plot_importance(table, path, learners):
     axes[0].set_yticks(range(len(order)), order)
     axes[0].invert_yaxis()
     axes[0].set_xlabel("mean |SHAP| as a share of the learner's total")
-    axes[1].set_xlabel("drop in held-out AUC when the layer is permuted (mean +- sd)")
+    axes[1].set_xlabel("drop in held-out AUC, layer permuted (mean, sd bars)")
     axes[1].axvline(0.0, color="#4d4d4d", lw=0.8)
     for ax in axes:
         ax.grid(axis="x", color="#dddddd", lw=0.6)
@@ -116,6 +117,7 @@ def plot_response(curves, layer, path, learners, *, categorical, site_values, si
         for ax in (top, bottom):
             ax.set_xticks(pos, [f"{c:g}" for c in classes])
         bottom.set_ylabel("share")
+        bottom.set_xlabel(f"{layer} (class)")
     else:
         lo, hi = data["x"].min(), data["x"].max()
         bins = np.linspace(lo, hi, 31) if hi > lo else 10
@@ -124,7 +126,7 @@ def plot_response(curves, layer, path, learners, *, categorical, site_values, si
         bottom.hist(np.clip(site_values, lo, hi), bins=bins, weights=site_weight, density=True, histtype="step",
                     color=_SITE_COLOUR, lw=2, label="sites")
         bottom.set_ylabel("density")
-    bottom.set_xlabel(f"{layer} (layer units; values beyond the grid drawn at its ends)")
+        bottom.set_xlabel(f"{layer} (layer units; values beyond the grid drawn at its ends)")
     bottom.legend(fontsize=8, frameon=False)
     fig.tight_layout()
     fig.savefig(path, dpi=110)

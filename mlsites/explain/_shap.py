@@ -114,8 +114,16 @@ def output_space(estimator):
     return "probability"
 
 
+def _as_input(estimator, X):
+    """``X`` as the estimator was fitted: a DataFrame keeps its names only for a model fitted on names."""
+    if isinstance(X, pd.DataFrame) and getattr(estimator, "feature_names_in_", None) is None:
+        return X.to_numpy()
+    return X
+
+
 def raw_output(estimator, X):
     """The learner's raw output (see :func:`output_space`) at rows ``X``, float64."""
+    X = _as_input(estimator, X)
     space = output_space(estimator)
     if space == "log-odds":
         out = estimator.decision_function(X)
@@ -126,6 +134,7 @@ def raw_output(estimator, X):
 
 def predicted_score(estimator, X):
     """The score a map shows: class-1 probability (or membership); ``predict`` for regressors."""
+    X = _as_input(estimator, X)
     if hasattr(estimator, "predict_proba"):
         return np.asarray(_class1(estimator, estimator.predict_proba(X)), dtype=np.float64)
     return np.asarray(estimator.predict(X), dtype=np.float64).ravel()
