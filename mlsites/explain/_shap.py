@@ -193,6 +193,9 @@ class LayerExplainer:
 
     Attributes
     ----------
+    estimator : estimator or None
+        The learner, kept by the permutation method only; the tree and linear
+        explainers keep their arrays and the encoder, so they pickle small.
     layers : list of str
     method : str
     output_space : str
@@ -239,6 +242,7 @@ class LayerExplainer:
         self.layers = _layer_names(estimator, background)
         self.output_space = output_space(estimator)
         transformers, final = _split_pipeline(estimator)
+        self._transformers = transformers
         columns = encoded_layers(transformers, len(self.layers))
         if method == "auto":
             if columns is not None and is_tree_model(final):
@@ -257,6 +261,8 @@ class LayerExplainer:
         if method == "tree_path_dependent":
             self._trees = flatten_trees(final)
             self.expected_value = self._trees.expected_value()
+            # the flat arrays and the encoder are all it needs: workers get no copy of the model
+            self.estimator = None
             return
         if background is None:
             raise InputError(f"the {method} explainer needs background rows (for example landscape cells "
@@ -271,6 +277,7 @@ class LayerExplainer:
             z_mean = self._transform(bg).mean(axis=0)
             self._z_mean = z_mean
             self.expected_value = float(self._coef @ z_mean + self._intercept)
+            self.estimator = None
             return
         self._background = bg.to_numpy(dtype=np.float64)
         self._pairs = _permutation_pairs(len(self.layers), int(n_permutations),
@@ -293,9 +300,8 @@ class LayerExplainer:
         return pd.DataFrame(arr, columns=self.layers)
 
     def _transform(self, frame):
-        transformers, _ = _split_pipeline(self.estimator)
         Z = frame
-        for t in transformers:
+        for t in self._transformers:
             Z = t.transform(Z)
         return np.asarray(Z, dtype=np.float64)
 
