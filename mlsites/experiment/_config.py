@@ -2,7 +2,7 @@
 
 An experiment file has sections of our own naming (``[study]``, ``[inputs]``,
 ``[distances]``, ``[terrain]``, ``[sites]``, ``[sampling]``, ``[folds]``,
-``[learners]``, ``[evaluation]``, ``[outputs]``, ``[periods]``). Paths are relative to the file
+``[learners]``, ``[evaluation]``, ``[explain]``, ``[outputs]``, ``[periods]``). Paths are relative to the file
 that names them. ``extends = "base.toml"`` at the top merges the file over a base
 file, so a study keeps one base and many variants. All problems are collected and
 reported together, each with the file, the key (and line where known) and a hint.
@@ -72,6 +72,16 @@ SCHEMA: dict[str, dict[str, tuple]] = {
     "evaluation": {
         "zone_targets": (dict, {"high": 0.7, "medium": 0.9}, False),
         "top_area_shares": (list, [0.1, 0.2, 0.33], False),
+    },
+    # defaults as mlsites.explain.EXPLAIN_DEFAULTS (checked equal in the tests)
+    "explain": {
+        "n_explain": (int, 100, False),
+        "n_background": (int, 50, False),
+        "n_permutations": (int, 10, False),
+        "n_repeats": (int, 5, False),
+        "n_grid": (int, 20, False),
+        "survey_layers": (list, [], False),
+        "correlation_threshold": (_NUM, 0.8, False),
     },
     "outputs": {
         "runs_dir": (str, "runs", True),
@@ -347,6 +357,14 @@ def _check_values(s, bad):
             bad(f"evaluation.zone_targets.{zone}", "site shares must increase from the top zone and lie in (0, 1]")
             break
         prev = share
+    ex = s["explain"]
+    for key in ("n_explain", "n_background", "n_permutations", "n_repeats", "n_grid"):
+        if ex[key] < 1:
+            bad(f"explain.{key}", f"must be at least 1, got {ex[key]}")
+    if not 0 < ex["correlation_threshold"] < 1:
+        bad("explain.correlation_threshold", f"must lie in (0, 1), got {ex['correlation_threshold']}")
+    if not all(isinstance(v, str) for v in ex["survey_layers"]):
+        bad("explain.survey_layers", "expected a list of layer names, e.g. [\"distance_roads\"]")
     for name in s["inputs"]:
         if name in s["distances"]:
             bad(f"inputs.{name}", "the same name is used in [distances]")

@@ -25,6 +25,8 @@ from pathlib import Path
 import numpy as np
 
 from mlsites import __version__
+from mlsites._files import staging_dir as _staging_dir
+from mlsites._files import swap_into_place as _swap_into_place
 from mlsites.errors import ConfigError, OutputExistsError
 from mlsites.experiment._hashing import file_digest, input_hashes, settings_digest
 
@@ -332,17 +334,6 @@ def _reserve(target: Path, fresh: bool, what: str, name: str):
         )
 
 
-def _swap_into_place(staging: Path, target: Path):
-    """Rename ``staging`` to ``target``; an old ``target`` is removed only afterwards."""
-    old = None
-    if target.exists():
-        old = target.with_name(f".{target.name}.old-{os.getpid()}-{time.time_ns()}")
-        os.replace(target, old)
-    os.replace(staging, target)
-    if old is not None:
-        shutil.rmtree(old, ignore_errors=True)
-
-
 @contextlib.contextmanager
 def _convergence_notes(log, what):
     """Count non-convergence warnings of fits in this process into one log line.
@@ -365,15 +356,6 @@ def _convergence_notes(log, what):
     if n:
         log(f"{what}: {n} fit(s) stopped at their iteration limit before converging; raise max_iter "
             "(or tol) in the learner's [learners.<name>] table")
-
-
-def _staging_dir(parent: Path, prefix: str) -> Path:
-    """A fresh hidden folder in ``parent`` with the usual permissions (mkdtemp gives 0700)."""
-    folder = Path(tempfile.mkdtemp(prefix=prefix, dir=parent))
-    umask = os.umask(0)
-    os.umask(umask)
-    folder.chmod(0o777 & ~umask)
-    return folder
 
 
 def _progress(total, desc, quiet):

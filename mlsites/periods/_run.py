@@ -273,7 +273,8 @@ def run_periods(experiment, *, out_dir=None, fresh=False, show_sites=False, quie
     the null ones.
     """
     from mlsites.experiment._config import Experiment, load_experiment
-    from mlsites.experiment._run import _staging_dir, _swap_into_place, output_roots
+    from mlsites._files import staging_dir as _staging_dir, swap_into_place as _swap_into_place
+    from mlsites.experiment._run import output_roots
     from mlsites.grid import read_grid
     from mlsites.periods._plots import plot_block_counts
     from mlsites.sampling import read_sites, read_valid_mask

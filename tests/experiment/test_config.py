@@ -84,3 +84,20 @@ def test_impossible_combinations(files):
     msg = str(err.value)
     for part in ("effort_field", "buffer_m", "must increase", "unknown learner 'oracle'"):
         assert part in msg
+
+
+def test_explain_section_defaults_and_checks(files):
+    from mlsites.explain import EXPLAIN_DEFAULTS
+
+    exp = load_experiment(_write(files / "e.toml", '[study]\ndem = "dem.tif"\n[sites]\npath = "sites.gpkg"\n'))
+    # the schema's defaults are the stage's own
+    assert {k: exp["explain"][k] for k in exp["explain"]} == {k: EXPLAIN_DEFAULTS[k] for k in exp["explain"]}
+    text = ('[study]\ndem = "dem.tif"\n[sites]\npath = "sites.gpkg"\n[explain]\nn_explain = 0\n'
+            'correlation_threshold = 1.5\nsurvey_layers = [3]\n')
+    with pytest.raises(ConfigError) as err:
+        load_experiment(_write(files / "bad_explain.toml", text))
+    msg = str(err.value)
+    assert "3 problem(s)" in msg
+    assert "bad_explain.toml:6: [explain.n_explain] must be at least 1" in msg
+    assert "[explain.correlation_threshold] must lie in (0, 1)" in msg
+    assert "[explain.survey_layers] expected a list of layer names" in msg
