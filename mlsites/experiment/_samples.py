@@ -174,22 +174,23 @@ def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, l
 
     Notes
     -----
-    Presence weights are ``1 / n_cells`` per site (each site counts once); the
-    background weights are balanced so their total equals the total presence
-    weight (METHODS.md §7). Samples whose cells lack a value in some layer (edges
+    Weights come from :func:`mlsites.sampling.sample_weights`: the cells of a site
+    share equal parts of one site's weight (each site counts once), all background
+    together weighs as much as all sites (METHODS.md §7), and the weights are scaled
+    to average 1, so learner settings mean the same whatever the study size. Samples whose cells lack a value in some layer (edges
     of neighbourhood layers, holes in an input raster) are removed and counted by
     layer; a site that loses all its cells is listed in ``dropped_records.csv``
     with the reason, and the weights of partly affected sites are renormalised.
     """
     from mlsites.grid import read_grid
     from mlsites.sampling import (
-        balance_weights,
         check_n_splits,
         extract_values,
         presence_cells,
         read_sites,
         read_valid_mask,
         sample_background,
+        sample_weights,
     )
 
     log = log or (lambda m: None)
@@ -245,11 +246,10 @@ def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, l
             f"({', '.join(f'{k}: {v}' for k, v in counts['missing_by_layer'].items())})")
     check_n_splits(len(after), exp["folds"]["n_splits"], source=str(s["path"]))
     pmask = table["label"] == 1
-    table.loc[pmask, "weight"] = 1.0 / table[pmask].groupby("site_id")["site_id"].transform("size")
     n_bg = int((~pmask).sum())
     if n_bg == 0:
         raise InsufficientDataError("no background cell has values in every layer; check the input layers")
-    table.loc[~pmask, "weight"] = balance_weights(float(table.loc[pmask, "weight"].sum()), n_bg)
+    table["weight"] = sample_weights(table["label"].to_numpy(), table["site_id"].to_numpy())
     categorical = [n for n, (_, k) in layers.items() if k == "categorical"]
     fold, blocks, fold_info = _assign_folds(exp, table, names, categorical, grid, seed, log)
     table["fold"] = fold

@@ -12,12 +12,19 @@ from mlsites.learners._fuzzy import (
     fuzzy_membership,
     weighted_percentile,
 )
-from mlsites.learners._presets import LEARNERS, LayerEncoder, fit_learner, make_learner
+from mlsites.learners._presets import (
+    LEARNERS,
+    LayerEncoder,
+    MeanLossLogisticRegression,
+    fit_learner,
+    make_learner,
+)
 
 __all__ = [
     "LEARNERS",
     "FuzzySuitability",
     "LayerEncoder",
+    "MeanLossLogisticRegression",
     "fit_learner",
     "make_learner",
     "fuzzy_combine",

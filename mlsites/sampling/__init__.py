@@ -4,10 +4,10 @@
 grid, ``presence_cells`` turns sites into weighted grid cells, ``sample_background``
 draws background cells (optionally away from sites and restricted to, or weighted by,
 survey coverage) and ``extract_values`` reads layer values at sample cells window by
-window.
+window; ``sample_weights`` weights the table (each site once, mean 1).
 """
 
-from mlsites.sampling._background import SURVEY_MODES, balance_weights, sample_background
+from mlsites.sampling._background import SURVEY_MODES, balance_weights, sample_background, sample_weights
 from mlsites.sampling._extract import extract_values, read_valid_mask
 from mlsites.sampling._presence import presence_cells
 from mlsites.sampling._sites import SiteRecords, check_n_splits, read_sites
@@ -19,6 +19,7 @@ __all__ = [
     "presence_cells",
     "sample_background",
     "balance_weights",
+    "sample_weights",
     "SURVEY_MODES",
     "extract_values",
     "read_valid_mask",

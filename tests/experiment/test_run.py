@@ -255,9 +255,10 @@ def test_sample_experiment_writes_and_protects_its_folder(tmp_path, data):
     assert samples.folder == tmp_path / "runs" / "tiny" / "samples"
     assert {"samples.parquet", "folds.csv", "dropped_records.csv", "sampling.json"} <= {
         p.name for p in samples.folder.iterdir()}
-    # presence weights: each site sums to one (METHODS.md §7), up to the 2**-30 rounding
+    # presence weights: every site sums to the same total (METHODS.md §7), weights
+    # averaging 1 (issue 7)
     per_site = samples.table[samples.table["label"] == 1].groupby("site_id")["weight"].sum()
-    np.testing.assert_allclose(per_site, 1.0, atol=1e-7)
+    np.testing.assert_allclose(per_site, len(samples.table) / (2 * len(per_site)), rtol=1e-7)
     with pytest.raises(OutputExistsError, match="--fresh"):
         sample_experiment(exp, quiet=True)
 

@@ -48,9 +48,12 @@ def test_table_weights_folds_and_reproducibility(study, tmp_path):
     assert (tmp_path / "a" / "samples.parquet").read_bytes() == (tmp_path / "b" / "samples.parquet").read_bytes()
     t = a.table
     pres, bg = t[t["label"] == 1], t[t["label"] == 0]
-    # METHODS.md §7: each site's cell weights sum to one; balanced background weight.
-    np.testing.assert_allclose(pres.groupby("site_id")["weight"].sum(), 1.0, rtol=1e-12)
+    # METHODS.md §7: every site's cells sum to the same total (each site counts once);
+    # balanced background weight; issue 7: weights average 1 whatever the study size.
+    per_site = pres.groupby("site_id")["weight"].sum()
+    np.testing.assert_allclose(per_site, len(t) / (2 * len(per_site)), rtol=1e-12)
     assert bg["weight"].sum() == pytest.approx(pres["weight"].sum(), rel=1e-12)
+    assert t["weight"].mean() == pytest.approx(1.0, rel=1e-12)
     assert (pres.groupby("site_id")["fold"].nunique() == 1).all()
     assert set(t["fold"]) == {0, 1, 2}
     assert not t[a.features].isna().any().any()
