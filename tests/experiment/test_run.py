@@ -318,3 +318,7 @@ def test_buffered_leave_one_site_out_runs_end_to_end(tmp_path, data):
     samples = pd.read_parquet(result.run_dir / "samples" / "samples.parquet")
     assert len(per_site) == samples.loc[samples["label"] == 1, "site_id"].nunique()
     assert (per_site["n_test_sites"] == 1).all()
+    # each site is scored against the background within its buffer (issue 7), and the
+    # log says so with the number of cells
+    assert (per_site["landscape"] == "within_buffer").all()
+    assert "background within buffer_m = 150 m" in (result.run_dir / "run.log").read_text()
