@@ -221,6 +221,10 @@ def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, l
                            exclusion_m=sa["exclusion_m"], survey=sa["survey_areas"],
                            survey_mode=sa["survey_mode"], effort_field=sa["effort_field"], random_state=seed)
     del valid
+    if sa["exclusion_m"] > 0:
+        log(f"exclusion_m = {sa['exclusion_m']:g} m: no background within that distance of a site, so the "
+            "background are pseudo-absences (not what was available to be found), and each fold's "
+            "held-out landscape lacks the cells near sites; set exclusion_m = 0 for presence-background")
     table = pd.concat([pres.assign(label=1), bg.assign(label=0, site_id="")], ignore_index=True)
     names = list(layers)
     values = extract_values({n: p for n, (p, _) in layers.items()}, table["row"].to_numpy(),

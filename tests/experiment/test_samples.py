@@ -95,3 +95,28 @@ def test_more_folds_than_sites(study, tmp_path):
     with pytest.raises(InsufficientDataError, match="500 folds"):
         prepare_samples(load_experiment(study / "many.toml"), tmp_path / "m", cache_dir=tmp_path / "c", quiet=True)
     assert not (tmp_path / "m").exists() or not any((tmp_path / "m").iterdir())
+
+
+def test_exclusion_distance_is_explained_in_the_log(study, tmp_path):
+    # Issue 7: a run with an exclusion distance says what it changes (METHODS.md §7:
+    # background kept away from sites is a pseudo-absence design, a different model).
+    text = (study / "exp.toml").read_text().replace("background_count = 600", "background_count = 600\nexclusion_m = 30")
+    (study / "excl.toml").write_text(text)
+    lines = []
+    prepare_samples(load_experiment(study / "excl.toml"), tmp_path / "e", cache_dir=tmp_path / "c", quiet=True,
+                    log=lines.append)
+    said = [ln for ln in lines if ln.startswith("exclusion_m = 30 m")]
+    assert len(said) == 1 and "pseudo-absences" in said[0] and "held-out landscape" in said[0]
+    lines.clear()
+    prepare_samples(load_experiment(study / "exp.toml"), tmp_path / "n", cache_dir=tmp_path / "c", quiet=True,
+                    log=lines.append)
+    assert not any("pseudo-absences" in ln for ln in lines)
+
+
+def test_demo_draws_background_as_available_landscape():
+    # Issue 7: the demo follows the README's advice (exclusion_m = 0, presence-background).
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parents[2] / "experiments"
+    for name in ("demo", "demo_variant", "every_option"):
+        assert load_experiment(root / f"{name}.toml")["sampling"]["exclusion_m"] == 0
