@@ -152,6 +152,38 @@ def _assign_folds(exp, table, features, categorical, grid, rng_seed, log):
     return np.asarray(fold, dtype=np.int64), blocks, info
 
 
+def _sites_outside_survey(pres, sa, grid, log):
+    """Count the sites none of whose cells is surveyed (``survey_mode = "inside"``); drop them if asked.
+
+    Returns the presence cells (without the dropped sites) and the dropped site ids.
+    """
+    import warnings
+
+    from mlsites.errors import DataQualityWarning
+    from mlsites.sampling import in_survey
+
+    if not sa["survey_areas"] or sa["survey_mode"] != "inside":
+        return pres, []
+    inside = pd.Series(in_survey(pres["x"].to_numpy(), pres["y"].to_numpy(), grid, sa["survey_areas"]))
+    per_site = inside.groupby(pres["site_id"].to_numpy(), sort=False).any()
+    outside = [str(sid) for sid in per_site.index[~per_site.to_numpy()]]
+    if not outside:
+        return pres, []
+    shown = ", ".join(outside[:5]) + (", ..." if len(outside) > 5 else "")
+    msg = (f"{len(outside)} of {len(per_site)} sites lie outside the survey areas ({shown}): with "
+           f"survey_mode = \"inside\" no background is drawn where they are, so the model cannot compare "
+           f"them with their surroundings")
+    if sa["drop_unsurveyed_sites"]:
+        msg += "; dropped (drop_unsurveyed_sites = true) and listed in dropped_records.csv"
+        pres = pres[~pres["site_id"].isin(outside)].reset_index(drop=True)
+    else:
+        msg += "; kept. Set drop_unsurveyed_sites = true in [sampling] to leave them out"
+        outside = []
+    warnings.warn(msg, DataQualityWarning, stacklevel=3)
+    log(msg)
+    return pres, outside
+
+
 def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, log=None,
                     hashes=None) -> SampleSet:
     """Build and write the sample table and folds of an experiment.
@@ -216,6 +248,7 @@ def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, l
     sa = exp["sampling"]
     pres = presence_cells(records, grid, buffer_m=sa["site_buffer_m"], valid_mask=valid,
                           one_cell_per_site=sa["one_cell_per_site"], random_state=seed)
+    pres, unsurveyed = _sites_outside_survey(pres, sa, grid, log)
     bg = sample_background(grid, n=None if sa["background_fraction"] else sa["background_count"],
                            fraction=sa["background_fraction"], valid_mask=valid, exclude_sites=records,
                            exclusion_m=sa["exclusion_m"], survey=sa["survey_areas"],
@@ -235,6 +268,9 @@ def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, l
                                          records.dropped["reason"])]
     dropped_rows += [{"source_row": None, "site_id": d["site_id"], "reason": d["reason"]}
                      for d in pres.attrs.get("dropped", [])]
+    source_row = dict(zip(records.sites["site_id"], records.sites["source_row"]))
+    dropped_rows += [{"source_row": source_row.get(sid), "site_id": sid,
+                      "reason": "outside the survey areas (drop_unsurveyed_sites = true)"} for sid in unsurveyed]
     missing = table[names].isna()
     counts = {"presence_cells_missing_values": int(missing.any(axis=1)[table["label"] == 1].sum()),
               "background_cells_missing_values": int(missing.any(axis=1)[table["label"] == 0].sum()),

@@ -7,7 +7,13 @@ survey coverage) and ``extract_values`` reads layer values at sample cells windo
 window; ``sample_weights`` weights the table (each site once, mean 1).
 """
 
-from mlsites.sampling._background import SURVEY_MODES, balance_weights, sample_background, sample_weights
+from mlsites.sampling._background import (
+    SURVEY_MODES,
+    balance_weights,
+    in_survey,
+    sample_background,
+    sample_weights,
+)
 from mlsites.sampling._extract import extract_values, read_valid_mask
 from mlsites.sampling._presence import presence_cells
 from mlsites.sampling._sites import SiteRecords, check_n_splits, read_sites
@@ -20,6 +26,7 @@ __all__ = [
     "sample_background",
     "balance_weights",
     "sample_weights",
+    "in_survey",
     "SURVEY_MODES",
     "extract_values",
     "read_valid_mask",

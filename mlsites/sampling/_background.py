@@ -30,7 +30,7 @@ from mlsites.sampling._sites import (
     sites_in_grid_crs,
 )
 
-__all__ = ["sample_background", "balance_weights", "sample_weights", "SURVEY_MODES"]
+__all__ = ["sample_background", "balance_weights", "sample_weights", "in_survey", "SURVEY_MODES"]
 
 SURVEY_MODES = ("inside", "weighted")
 BACKGROUND_COLUMNS = ["row", "col", "x", "y", "weight"]
@@ -125,6 +125,34 @@ def sample_weights(label, site_id) -> np.ndarray:
     w[pres] = 1.0 / np.bincount(codes)[codes]
     w[~pres] = balance_weights(float(n_sites), n_bg)
     return w * (label.size / (2.0 * n_sites))
+
+
+def in_survey(x, y, grid: GridSpec, survey) -> np.ndarray:
+    """Whether each point (cell centre) lies inside a survey polygon.
+
+    Parameters
+    ----------
+    x, y : array-like of float
+        Coordinates in the grid CRS, for example presence cell centres.
+    grid : GridSpec
+        The study grid (the survey layer is reprojected to its CRS).
+    survey : GeoDataFrame or path-like
+        Survey-coverage polygons, as for :func:`sample_background`.
+
+    Returns
+    -------
+    ndarray of bool
+        True where the point lies strictly inside a survey polygon: the rule by
+        which ``survey_mode = "inside"`` accepts background cells, so a site none
+        of whose cells passes it sits where no background can be drawn.
+
+    Raises
+    ------
+    InputError, CRSError, VectorReadError
+        As :func:`sample_background` for a bad survey layer.
+    """
+    surv = _Survey.build(survey, grid, "inside", None)
+    return surv.effort_at(x, y) > 0
 
 
 def sample_background(grid: GridSpec, *, n: int | None = None, fraction: float | None = None,

@@ -120,3 +120,49 @@ def test_demo_draws_background_as_available_landscape():
     root = Path(__file__).resolve().parents[2] / "experiments"
     for name in ("demo", "demo_variant", "every_option"):
         assert load_experiment(root / f"{name}.toml")["sampling"]["exclusion_m"] == 0
+
+
+def test_sites_outside_the_surveyed_areas_are_counted_and_can_be_dropped(study, tmp_path):
+    # Issue 7: with survey_mode = "inside" a site none of whose cells is surveyed cannot be
+    # matched by background. Reference count: shapely's point-in-polygon on the site cells.
+    import geopandas as gpd
+    import shapely
+
+    from mlsites.errors import DataQualityWarning
+
+    left, bottom, right, top = GRID.bounds
+    survey = shapely.box(left, bottom, (left + right) / 2, top)
+    gpd.GeoDataFrame({"effort": [1.0]}, geometry=[survey], crs=GRID.crs).to_file(study / "survey.gpkg")
+    base = (study / "exp.toml").read_text().replace(
+        "background_count = 600", 'background_count = 300\nsurvey_areas = "survey.gpkg"')
+    (study / "surv.toml").write_text(base)
+    lines = []
+    with pytest.warns(DataQualityWarning, match="lie outside the survey areas"):
+        kept = prepare_samples(load_experiment(study / "surv.toml"), tmp_path / "k", cache_dir=tmp_path / "c",
+                               quiet=True, log=lines.append)
+    # reference: the site cells (presence_cells, METHODS.md §7) tested with shapely
+    from mlsites.sampling import presence_cells, read_sites
+
+    cells = presence_cells(read_sites(study / "sites.gpkg", GRID), GRID, buffer_m=15, valid_mask=study / "dem.tif")
+    inside = pd.Series(shapely.contains_xy(survey, cells["x"], cells["y"])).groupby(cells["site_id"].to_numpy()).any()
+    n_out = int((~inside).sum())
+    assert 0 < n_out < len(inside)
+    assert any(ln.startswith(f"{n_out} of {len(inside)} sites lie outside") and "kept" in ln for ln in lines)
+    assert set(kept.table["site_id"]) & set(inside.index[~inside.to_numpy()])
+    (study / "drop.toml").write_text(base.replace('survey_areas = "survey.gpkg"',
+                                                  'survey_areas = "survey.gpkg"\ndrop_unsurveyed_sites = true'))
+    with pytest.warns(DataQualityWarning, match="dropped"):
+        dropped = prepare_samples(load_experiment(study / "drop.toml"), tmp_path / "d", cache_dir=tmp_path / "c",
+                                  quiet=True)
+    listed = pd.read_csv(tmp_path / "d" / "dropped_records.csv")
+    listed = listed[listed["reason"].str.startswith("outside the survey areas")]
+    assert sorted(listed["site_id"]) == sorted(inside.index[~inside.to_numpy()])
+    assert listed["source_row"].notna().all()
+    assert not set(listed["site_id"]) & set(dropped.table["site_id"])
+    assert dropped.summary["n_sites_used"] == len(inside) - n_out
+    # the key makes sense only with survey areas drawn "inside"
+    from mlsites.errors import ConfigError
+
+    (study / "nosurvey.toml").write_text(base.replace('survey_areas = "survey.gpkg"', "drop_unsurveyed_sites = true"))
+    with pytest.raises(ConfigError, match=r"\[sampling.drop_unsurveyed_sites\] applies only with survey_areas"):
+        load_experiment(study / "nosurvey.toml")
