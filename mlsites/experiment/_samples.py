@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import shutil
 import tempfile
 import time
@@ -23,10 +24,15 @@ from mlsites import __version__
 from mlsites.errors import InputError, InsufficientDataError, OutputExistsError
 from mlsites.experiment._hashing import input_hashes, settings_digest
 
-__all__ = ["SampleSet", "derive_layers", "prepare_samples", "buffered_splitter", "FEATURE_EXCLUDED"]
+__all__ = ["SampleSet", "derive_layers", "prepare_samples", "buffered_splitter", "check_redundant_features",
+           "FEATURE_EXCLUDED"]
 
 #: Terrain outputs that are not used as model features (codes, circular or redundant).
 FEATURE_EXCLUDED = {"aspect", "flow_direction", "filled_dem", "streams", "flow_accumulation"}
+#: Terrain outputs that are affine copies of another layer over the study area
+#: (``tpi_<R>m_std`` = (``tpi_<R>m`` - mean) / sd): written as layers, not used as
+#: features, since they would enter the learners twice.
+_STANDARDISED = re.compile(r"^(tpi_.+m)_std$")
 SAMPLE_COLUMNS = ["sample_id", "label", "weight", "site_id", "fold", "x", "y", "row", "col"]
 
 
@@ -83,10 +89,48 @@ def derive_layers(exp, cache_dir, *, fresh=False, quiet=False, log=None, hashes=
         log(f"terrain layers: cached in {folder.name}")
     summary = json.loads((folder / "terrain.json").read_text())
     layers = {n: (folder / info["file"], "categorical" if n == "landform" else "continuous")
-              for n, info in summary["layers"].items() if n not in FEATURE_EXCLUDED}
+              for n, info in summary["layers"].items() if _is_feature(n, summary["layers"])}
     for n, spec in exp["inputs"].items():
         layers[n] = (Path(spec["path"]), spec["kind"])
     return layers
+
+
+def _is_feature(name, all_layers) -> bool:
+    """Whether a terrain output enters the learners (not excluded, not a standardised copy)."""
+    if name in FEATURE_EXCLUDED:
+        return False
+    copy_of = _STANDARDISED.match(name)
+    return not (copy_of and copy_of.group(1) in all_layers)
+
+
+def check_redundant_features(exp, layers, grid, log=None):
+    """Refuse features that copy each other over the study area (|Spearman rho| > 0.99).
+
+    ``layers`` maps name -> (path, kind), as from :func:`derive_layers`. The layers
+    are read on a regular lattice of the study grid (:func:`redundant_layer_pairs`);
+    categorical layers are not compared.
+
+    Raises
+    ------
+    InputError
+        Naming both layers of every such pair, rho and what to do.
+    """
+    from mlsites.sampling import redundant_layer_pairs
+
+    pairs = redundant_layer_pairs({n: p for n, (p, _) in layers.items()}, grid,
+                                  kinds={n: k for n, (_, k) in layers.items()})
+    if log:
+        log(f"feature layers compared on a lattice of {pairs.attrs['n_cells']} study-area cells (one in "
+            f"{pairs.attrs['step']} along rows and columns): {len(pairs)} pair(s) with |Spearman rho| > 0.99")
+    if len(pairs):
+        found = "; ".join(f"{r.first} and {r.second} (Spearman rho = {r.spearman:.4f})"
+                          for r in pairs.itertuples())
+        raise InputError(
+            f"{exp.path}: feature layers copy each other over the study area: {found}, on a lattice of "
+            f"{pairs.attrs['n_cells']} cells; |rho| above 0.99 makes the pair collinear for logistic "
+            "regression and counts it twice in the fuzzy baseline. Remove one layer of each pair from "
+            "[terrain] layers, [inputs] or [distances]"
+        )
 
 
 def buffered_splitter(exp, table, grid):
@@ -235,6 +279,7 @@ def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, l
     grid = read_grid(dem)
     layers = derive_layers(exp, cache_dir or out_dir.parent / "cache", fresh=fresh, quiet=quiet, log=log,
                            hashes=hashes)
+    check_redundant_features(exp, layers, grid, log)
     valid = read_valid_mask(dem, grid)
     s = exp["sites"]
     if not s["path"]:

@@ -4,7 +4,8 @@
 grid, ``presence_cells`` turns sites into weighted grid cells, ``sample_background``
 draws background cells (optionally away from sites and restricted to, or weighted by,
 survey coverage) and ``extract_values`` reads layer values at sample cells window by
-window; ``sample_weights`` weights the table (each site once, mean 1).
+window; ``sample_weights`` weights the table (each site once, mean 1);
+``redundant_layer_pairs`` finds layers that copy each other over the study area.
 """
 
 from mlsites.sampling._background import (
@@ -16,6 +17,7 @@ from mlsites.sampling._background import (
 )
 from mlsites.sampling._extract import extract_values, read_valid_mask
 from mlsites.sampling._presence import presence_cells
+from mlsites.sampling._redundancy import lattice_cells, redundant_layer_pairs
 from mlsites.sampling._sites import SiteRecords, check_n_splits, read_sites
 
 __all__ = [
@@ -30,4 +32,6 @@ __all__ = [
     "SURVEY_MODES",
     "extract_values",
     "read_valid_mask",
+    "redundant_layer_pairs",
+    "lattice_cells",
 ]

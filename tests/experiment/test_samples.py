@@ -7,7 +7,7 @@ import rasterio
 from rasterio.transform import from_origin
 from scipy.ndimage import gaussian_filter
 
-from mlsites.errors import InsufficientDataError, OutputExistsError
+from mlsites.errors import InputError, InsufficientDataError, OutputExistsError
 from mlsites.experiment import load_experiment
 from mlsites.experiment._samples import prepare_samples
 from mlsites.grid import GridSpec, write_array
@@ -57,7 +57,9 @@ def test_table_weights_folds_and_reproducibility(study, tmp_path):
     assert (pres.groupby("site_id")["fold"].nunique() == 1).all()
     assert set(t["fold"]) == {0, 1, 2}
     assert not t[a.features].isna().any().any()
-    assert a.features == ["slope", "northness", "tpi_50m", "tpi_50m_std", "landform"]
+    # tpi_50m_std is an affine copy of tpi_50m (README layer table): written, not a feature
+    assert a.features == ["slope", "northness", "tpi_50m", "landform"]
+    assert list((tmp_path / "cache").glob("terrain-*/tpi_50m_std.tif"))
     assert a.categorical == ["landform"]
     folds = pd.read_csv(tmp_path / "a" / "folds.csv")
     np.testing.assert_array_equal(folds["fold"], t["fold"])
@@ -166,3 +168,18 @@ def test_sites_outside_the_surveyed_areas_are_counted_and_can_be_dropped(study, 
     (study / "nosurvey.toml").write_text(base.replace('survey_areas = "survey.gpkg"', "drop_unsurveyed_sites = true"))
     with pytest.raises(ConfigError, match=r"\[sampling.drop_unsurveyed_sites\] applies only with survey_areas"):
         load_experiment(study / "nosurvey.toml")
+
+
+def test_features_that_copy_each_other_are_refused(study, tmp_path):
+    # Issue 7: two input layers that are monotone transforms of each other over the study
+    # area (here the DEM and its logarithm: Spearman rho = 1 by definition) are refused
+    # with a line naming both.
+    with rasterio.open(study / "dem.tif") as src:
+        dem = src.read(1, masked=True).filled(np.nan)
+    write_array(study / "log_dem.tif", np.log(dem).astype(np.float32), GRID, nodata=-9999.0)
+    text = (study / "exp.toml").read_text().replace(
+        "[terrain]", '[inputs]\nheight = { path = "dem.tif" }\nlog_height = { path = "log_dem.tif" }\n[terrain]')
+    (study / "copies.toml").write_text(text)
+    with pytest.raises(InputError, match=r"height and log_height \(Spearman rho = 1\.0000\).*Remove one layer"):
+        prepare_samples(load_experiment(study / "copies.toml"), tmp_path / "x", cache_dir=tmp_path / "c", quiet=True)
+    assert not (tmp_path / "x" / "samples.parquet").exists()
