@@ -8,6 +8,7 @@ to every step that uses them.
 
 from mlsites.learners._fuzzy import (
     FuzzySuitability,
+    category_memberships,
     fuzzy_combine,
     fuzzy_membership,
     weighted_percentile,
@@ -23,6 +24,7 @@ from mlsites.learners._presets import (
 __all__ = [
     "LEARNERS",
     "FuzzySuitability",
+    "category_memberships",
     "LayerEncoder",
     "MeanLossLogisticRegression",
     "fit_learner",

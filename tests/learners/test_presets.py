@@ -133,8 +133,9 @@ def test_unknown_category_at_predict(name, table):
     proba = model.predict_proba(unseen)
     assert np.all(np.isfinite(proba)) and np.all((proba >= 0) & (proba <= 1))
     if name == "fuzzy":
-        # no site lies in an unseen category, so its membership and the AND are 0
-        np.testing.assert_array_equal(proba[:, 1], 0.0)
+        # no site lies in an unseen category: its membership is the floor
+        mu = model[-1].predict_memberships(unseen)
+        np.testing.assert_array_equal(mu[:, 1], model[-1].membership_floor)
 
 
 @pytest.mark.parametrize("name", sorted(FAST))
@@ -267,8 +268,8 @@ def test_weights_reach_the_final_estimator(name, table):
 def test_fuzzy_preset_weights_match_estimator(table):
     frame, y, w, probe = table
     w = w * np.linspace(0.1, 2.0, len(w))
-    model = fit_learner(_make("fuzzy", operator="gamma", gamma=0.5), frame, y, w)
-    ref = FuzzySuitability(categorical_features=["landform"], operator="gamma", gamma=0.5)
+    model = fit_learner(_make("fuzzy"), frame, y, w)
+    ref = FuzzySuitability(categorical_features=["landform"])
     ref.fit(frame, y, sample_weight=w)
     np.testing.assert_array_equal(model.predict_proba(probe), ref.predict_proba(probe))
 
