@@ -324,6 +324,13 @@ class FuzzySuitability(ClassifierMixin, BaseEstimator):
         value outside the site range (or a class without sites) lowers the
         suitability without zeroing the algebraic product for every other layer.
         0 gives the plain trapezoid.
+    rescale_product : bool, default True
+        Report the result of "algebraic_product" and "gamma_operator" as its n-th
+        root (n = number of layers), the geometric mean per layer. The root keeps
+        the order of cells (AUC, gains, zones do not change) but puts the score on
+        the scale of one layer's membership: a product of a dozen memberships is
+        otherwise below 0.01 almost everywhere, which crowds the whole landscape into
+        the lowest windows of the Boyce index. False gives the operator's value.
     categorical_features : sequence of int or str, optional
         Columns (indices, or names when fitting on a DataFrame) holding category
         codes, such as landform classes or soil units.
@@ -410,6 +417,7 @@ class FuzzySuitability(ClassifierMixin, BaseEstimator):
         operator="gamma_operator",
         gamma=None,
         membership_floor=DEFAULT_MEMBERSHIP_FLOOR,
+        rescale_product=True,
         categorical_features=None,
         monotone=None,
     ):
@@ -418,6 +426,7 @@ class FuzzySuitability(ClassifierMixin, BaseEstimator):
         self.operator = operator
         self.gamma = gamma
         self.membership_floor = membership_floor
+        self.rescale_product = rescale_product
         self.categorical_features = categorical_features
         self.monotone = monotone
 
@@ -545,7 +554,10 @@ class FuzzySuitability(ClassifierMixin, BaseEstimator):
         -------
         ndarray of shape (n_samples, 2)
         """
-        mu = fuzzy_combine(self.predict_memberships(X), operator=self.operator, gamma=self.gamma_)
+        memberships = self.predict_memberships(X)
+        mu = fuzzy_combine(memberships, operator=self.operator, gamma=self.gamma_)
+        if self.rescale_product and self.operator in ("algebraic_product", "gamma_operator"):
+            mu = mu ** (1.0 / memberships.shape[1])
         return np.column_stack([1.0 - mu, mu])
 
     def predict(self, X):

@@ -264,7 +264,7 @@ def test_estimator_combines_layers_like_reference():
         ("gamma_operator", fas**0.7 * fap**0.3),
     ]:
         model = FuzzySuitability(operator=operator, gamma=0.7, percentiles=(5, 25, 75, 95),
-                                 membership_floor=0.0).fit(X, y)
+                                 membership_floor=0.0, rescale_product=False).fit(X, y)
         got = model.predict_proba(probe)[:, 1]
         np.testing.assert_allclose(got, expected, rtol=0, atol=1e-5)
         np.testing.assert_allclose(
@@ -337,7 +337,9 @@ def test_gamma_is_chosen_from_the_training_rows():
     expected = grid[np.flatnonzero(auc >= auc.max() - 1e-3)[0]]
     assert model.gamma_ == pytest.approx(expected, abs=1e-12)
     np.testing.assert_allclose(model.gamma_auc_, auc, atol=1e-12)
-    np.testing.assert_allclose(model.predict_proba(X)[:, 1], fas**expected * fap ** (1 - expected), atol=1e-12)
+    # reported as the square root (two layers), the geometric mean per layer
+    np.testing.assert_allclose(model.predict_proba(X)[:, 1], (fas**expected * fap ** (1 - expected)) ** 0.5,
+                               atol=1e-12)
     # a gamma given is used as it is
     assert FuzzySuitability(gamma=0.4).fit(X, y).gamma_ == 0.4
     # only the training rows count: a model refitted on half the rows chooses from those
@@ -346,6 +348,26 @@ def test_gamma_is_chosen_from_the_training_rows():
     fap_h, fas_h = mu_h.prod(axis=1), 1 - (1 - mu_h).prod(axis=1)
     auc_h = [roc_auc_score(y[::2], fas_h**g * fap_h ** (1 - g), sample_weight=w[::2]) for g in grid]
     np.testing.assert_allclose(half.gamma_auc_, auc_h, atol=1e-12)
+
+
+def test_rescaled_product_is_the_root_and_keeps_the_order():
+    # the n-th root of the algebraic product (METHODS.md §10 FAP) is the geometric mean
+    # of the memberships (reference: scipy.stats.gmean); ranks and hence AUC unchanged
+    from scipy.stats import gmean, rankdata
+
+    rng = np.random.default_rng(9)
+    X = rng.normal(size=(200, 4))
+    y = (rng.random(200) < 0.3).astype(int)
+    kwargs = dict(operator="algebraic_product", membership_floor=0.1)
+    root = FuzzySuitability(**kwargs).fit(X, y)
+    plain = FuzzySuitability(rescale_product=False, **kwargs).fit(X, y)
+    mu = root.predict_memberships(X)
+    np.testing.assert_allclose(root.predict_proba(X)[:, 1], gmean(mu, axis=1), rtol=1e-12)
+    np.testing.assert_allclose(plain.predict_proba(X)[:, 1], mu.prod(axis=1), rtol=1e-12)
+    np.testing.assert_array_equal(rankdata(root.predict_proba(X)[:, 1]), rankdata(plain.predict_proba(X)[:, 1]))
+    # minimum and maximum are already on the scale of one membership: no root
+    low = FuzzySuitability(operator="minimum", membership_floor=0.1).fit(X, y)
+    np.testing.assert_allclose(low.predict_proba(X)[:, 1], low.predict_memberships(X).min(axis=1), rtol=1e-12)
 
 
 def test_floor_keeps_cells_apart():
