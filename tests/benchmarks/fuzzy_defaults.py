@@ -7,8 +7,11 @@ percentiles below. gamma is chosen inside ``fit`` from each fold's training rows
 Run: ``python tests/benchmarks/fuzzy_defaults.py [--work DIR]``.
 
 Prints one JSON line: per setting the mean fold AUC on each study and over the
-three, the best setting, and the old default (minimum, floor 0, P5/25/75/95) for
-comparison.
+three, the best setting, and the former default (minimum, floor 0, P5/25/75/95) for
+comparison. Categorical classes use the relative site density in every setting.
+Result of one run: former default 0.640; gamma operator, floor 0.2, P20/40/60/80
+0.772 (floor 0.5: 0.772; P5/25/75/95 with floor 0.2: 0.757); the chosen gamma is 0
+(the algebraic product) on nearly every fold.
 """
 
 import argparse
