@@ -52,7 +52,7 @@ class CrossValResult:
         One row per learner and fold, plus one pooled row per learner with
         ``fold == "all"``: ``learner``, ``fold``, ``n_train``, ``n_test_site_cells``,
         ``n_test_sites``, ``n_test_background``, ``landscape`` ("held_out" or
-        "all_background", see Notes of :func:`cross_validate`), then the measures
+        "within_buffer", see Notes of :func:`cross_validate`), then the measures
         of :func:`evaluate_scores` (``auc``, ``boyce``, ``captured_top_10`` ...,
         ``gini_zones``).
     summary : pandas.DataFrame
@@ -172,6 +172,15 @@ def _make_splits(table, fold_column, splitter, X, label, codes):
                     f"Fold {k} has no {what} cells among its {train.size} training rows; a learner needs "
                     f"both. Use fewer folds or a different block size."
                 )
+        if not (label[test] == 0).any():
+            untrained = np.ones(label.size, dtype=bool)
+            untrained[train] = False
+            if not (untrained & (label == 0)).any():
+                raise InsufficientDataError(
+                    f"Fold {k} has no background outside its {train.size} training rows to score its "
+                    f"held-out sites against (for buffered leave-one-site-out: no background cell within "
+                    f"the buffer of the held-out site). Use a larger buffer or more background cells."
+                )
     return splits
 
 
@@ -208,14 +217,22 @@ def _fit_and_score(factory, seed, X, label, weight, train, test, train_sites):
     return scores[: test.size], scores[test.size :]
 
 
+#: ``landscape`` values: background among the fold's test rows, or background in
+#: neither its training nor its test rows (for buffered leave-one-site-out, the
+#: background within the buffer around the held-out site).
+LANDSCAPES = ("held_out", "within_buffer")
+
+
 @dataclass(frozen=True)
 class _FoldRows:
     """Rows of one fold: training rows and sites, test rows, landscape rows, rows to score.
 
-    The landscape is the fold's held-out background, or, when its test rows hold
-    none (buffered leave-one-site-out), all background outside the test rows.
-    ``scored`` lists the test rows, then landscape rows outside them; ``site_pos``
-    and ``land_pos`` index the held-out sites and the landscape in ``scored``.
+    The landscape is background the fold's model was not trained on: the fold's
+    held-out background, or, when its test rows hold none (buffered
+    leave-one-site-out), the background in neither its training nor its test rows
+    (the background within the buffer). ``scored`` lists the test rows, then
+    landscape rows outside them; ``site_pos`` and ``land_pos`` index the held-out
+    sites and the landscape in ``scored``.
     """
 
     train: np.ndarray
@@ -234,8 +251,8 @@ class _FoldRows:
         if held.size:
             land, source, scored, land_pos = test[held], "held_out", test, held
         else:
-            land = np.setdiff1d(background_rows, test)
-            source, scored = "all_background", np.concatenate((test, land))
+            land = np.setdiff1d(np.setdiff1d(background_rows, test), train)
+            source, scored = "within_buffer", np.concatenate((test, land))
             land_pos = test.size + np.arange(land.size)
         return cls(train, train[label[train] == 1], test, land, source, scored, site_pos, land_pos)
 
@@ -365,8 +382,9 @@ def cross_validate(
         Unknown feature or fold column, bad labels, weights, learners, zone targets
         or area shares (all checked before any fit).
     InsufficientDataError
-        A fold with no site cell among its test rows, or no site or background
-        cell among its training rows (checked before any fit).
+        A fold with no site cell among its test rows, no site or background cell
+        among its training rows, or no background outside its training rows to
+        score against (checked before any fit).
 
     Notes
     -----
@@ -382,8 +400,13 @@ def cross_validate(
     with their weights as ``site_weight`` (each site counts once) against the test
     background cells, weight 1, as ``landscape_scores``. A fold whose test rows hold
     no background (buffered leave-one-site-out without ``background_in_test``)
-    uses the fold model's scores of all background cells outside the test rows
-    instead; column ``landscape`` says which was used.
+    uses the background that is in neither its training nor its test rows instead:
+    for buffered leave-one-site-out, the background within the buffer of the
+    held-out site, which the fold's model never saw, just as it never saw the
+    site. Scoring against the training background instead would flatter every
+    learner that fits its training data closely. Column ``landscape`` says which
+    was used ("held_out" or "within_buffer"; "mixed" in the pooled row when folds
+    differ); ``n_test_background`` counts the landscape cells.
 
     Zone thresholds of fold k come from the **training** sites' in-sample scores
     (:func:`zone_thresholds` with the training weights), so the held-out

@@ -62,6 +62,7 @@ SCHEMA: dict[str, dict[str, tuple]] = {
         "survey_areas": (str, None, True),
         "survey_mode": (str, "inside", False),
         "effort_field": (str, None, False),
+        "drop_unsurveyed_sites": (bool, False, False),
     },
     "folds": {
         "method": (str, "square_blocks", False),
@@ -335,6 +336,9 @@ def _check_values(s, bad):
         bad("sampling.survey_mode", f"{sa['survey_mode']!r} is not one of {', '.join(SURVEY_MODES)}")
     if sa["survey_mode"] == "weighted" and not sa["effort_field"]:
         bad("sampling.effort_field", "survey_mode = \"weighted\" needs effort_field, the column of survey effort")
+    if sa["drop_unsurveyed_sites"] and not (sa["survey_areas"] and sa["survey_mode"] == "inside"):
+        bad("sampling.drop_unsurveyed_sites", "applies only with survey_areas and survey_mode = \"inside\"; "
+            "give both or remove the key")
     if sa["site_buffer_m"] < 0 or sa["exclusion_m"] < 0:
         bad("sampling.site_buffer_m", "distances must be zero or positive")
     if sa["background_count"] is not None and sa["background_count"] < 1:

@@ -466,6 +466,13 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
                                         zone_targets=ev["zone_targets"], top_area_shares=tuple(ev["top_area_shares"]),
                                         n_jobs=n_jobs, progress=bar)
             write_crossval(result, staging)
+            folds = result.by_fold[(result.by_fold["fold"] != "all")
+                                   & (result.by_fold["learner"] == result.by_fold["learner"].iloc[0])]
+            if (folds["landscape"] == "within_buffer").any():
+                n_land = folds["n_test_background"]
+                log(f"landscape of each held-out site: the background within buffer_m = "
+                    f"{exp['folds']['buffer_m']:g} m of it, never seen by its fold's model "
+                    f"(median {n_land.median():.0f} cells, fewest {n_land.min()})")
             best = result.summary.iloc[0]
             log(f"best learner by mean fold AUC: {best['learner']} ({best['auc_mean']:.3f})")
         with log.stage("models"), _convergence_notes(log, "refit"):

@@ -8,16 +8,25 @@ to every step that uses them.
 
 from mlsites.learners._fuzzy import (
     FuzzySuitability,
+    category_memberships,
     fuzzy_combine,
     fuzzy_membership,
     weighted_percentile,
 )
-from mlsites.learners._presets import LEARNERS, LayerEncoder, fit_learner, make_learner
+from mlsites.learners._presets import (
+    LEARNERS,
+    LayerEncoder,
+    MeanLossLogisticRegression,
+    fit_learner,
+    make_learner,
+)
 
 __all__ = [
     "LEARNERS",
     "FuzzySuitability",
+    "category_memberships",
     "LayerEncoder",
+    "MeanLossLogisticRegression",
     "fit_learner",
     "make_learner",
     "fuzzy_combine",

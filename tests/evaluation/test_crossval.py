@@ -240,10 +240,10 @@ def test_buffered_leave_one_site_out_honours_buffer(virtual):
                          splitter=splitter)
     rows = res.by_fold[res.by_fold["fold"] != "all"]
     assert len(rows) == 12
-    assert (rows["landscape"] == "all_background").all()
+    assert (rows["landscape"] == "within_buffer").all()
     # brute-force reference for the first site (fold 0): train on every sample farther
-    # than the buffer (NumPy distances), score all background outside the test cell,
-    # AUC by scikit-learn.
+    # than the buffer (NumPy distances), score the background within the buffer (which
+    # the fold's model never saw), AUC by scikit-learn.
     xy = table[["x", "y"]].to_numpy()
     dist = np.hypot(*(xy - xy[0]).T)
     train = dist > buffer
@@ -251,7 +251,8 @@ def test_buffered_leave_one_site_out_honours_buffer(virtual):
     est = fit_learner(make_learner("logistic", random_state=0), table.loc[train, FEATURES],
                       table.loc[train, "label"], sample_weight=table.loc[train, "weight"])
     score = est.predict_proba(table[FEATURES])[:, 1]
-    land = (table["label"] == 0).to_numpy()
+    land = (table["label"] == 0).to_numpy() & ~train
+    assert rows["n_test_background"].iloc[0] == land.sum() > 0
     y = np.concatenate(([1], np.zeros(land.sum())))
     expected = roc_auc_score(y, np.concatenate(([score[0]], score[land])))
     # lbfgs logistic regression is deterministic; rtol 1e-7 for float64 round-off
@@ -260,6 +261,60 @@ def test_buffered_leave_one_site_out_honours_buffer(virtual):
     table["fold"] = np.where(table["label"] == 1, np.arange(len(table)), -1)
     with pytest.raises(InputError, match="BufferedLeaveOneSiteOut"):
         cross_validate(table, features=FEATURES, learners={"logistic": _learners()["logistic"]})
+
+
+class _SpyClassifier(ClassifierMixin, BaseEstimator):
+    """Records the ``rid`` of the background rows it is trained on and of every row it scores."""
+
+    calls = []
+
+    def fit(self, X, y, sample_weight=None):
+        self.classes_ = np.array([0, 1])
+        self.trained_ = set(X["rid"][np.asarray(y) == 0].astype(int))
+        return self
+
+    def predict_proba(self, X):
+        type(self).calls.append((self.trained_, X["rid"].astype(int).to_numpy()))
+        return np.column_stack([np.full(len(X), 0.5), np.full(len(X), 0.5)])
+
+
+@pytest.mark.parametrize("method", ["blocks", "buffered"])
+def test_no_landscape_row_of_a_fold_is_a_training_row(virtual, method):
+    # Issue 7: each fold scores its held-out sites against background its model was not
+    # trained on. The spy sees the training rows and the scored rows; the scored
+    # background must be disjoint from the trained background in every fold.
+    from mlsites.folds import BufferedLeaveOneSiteOut
+
+    table = virtual.copy()
+    splitter = None
+    if method == "buffered":
+        sites = table[table["label"] == 1].iloc[:8]
+        table = pd.concat([sites, table[table["label"] == 0].iloc[:600]], ignore_index=True)
+        site_id = np.where(table["label"] == 1, table["site_id"], None)
+        splitter = BufferedLeaveOneSiteOut(table["x"], table["y"], site_id, buffer=200.0)
+    table["rid"] = np.arange(len(table))
+    bg_rid = set(table.loc[table["label"] == 0, "rid"])
+    _SpyClassifier.calls.clear()
+    res = cross_validate(table, features=["rid"] + FEATURES, learners={"spy": _SpyClassifier},
+                         splitter=splitter)
+    assert len(_SpyClassifier.calls) == len(res.by_fold) - 1
+    for trained, scored in _SpyClassifier.calls:
+        scored_background = set(scored) & bg_rid
+        assert scored_background and not scored_background & trained
+    expected = "within_buffer" if method == "buffered" else "held_out"
+    assert (res.by_fold["landscape"] == expected).all()
+
+
+def test_buffer_without_background_is_refused_before_fitting(virtual):
+    from mlsites.folds import BufferedLeaveOneSiteOut
+
+    sites = virtual[virtual["label"] == 1].iloc[:6]
+    far = virtual[(virtual["label"] == 0)].iloc[:300]
+    table = pd.concat([sites, far], ignore_index=True)
+    site_id = np.where(table["label"] == 1, table["site_id"], None)
+    splitter = BufferedLeaveOneSiteOut(table["x"], table["y"], site_id, buffer=0.0)
+    with pytest.raises(InsufficientDataError, match="no background outside its .* training rows"):
+        cross_validate(table, features=FEATURES, learners=_learners(), splitter=splitter)
 
 
 def test_bad_zone_targets_refused_before_fitting(virtual):

@@ -255,9 +255,10 @@ def test_sample_experiment_writes_and_protects_its_folder(tmp_path, data):
     assert samples.folder == tmp_path / "runs" / "tiny" / "samples"
     assert {"samples.parquet", "folds.csv", "dropped_records.csv", "sampling.json"} <= {
         p.name for p in samples.folder.iterdir()}
-    # presence weights: each site sums to one (METHODS.md §7), up to the 2**-30 rounding
+    # presence weights: every site sums to the same total (METHODS.md §7), weights
+    # averaging 1 (issue 7)
     per_site = samples.table[samples.table["label"] == 1].groupby("site_id")["weight"].sum()
-    np.testing.assert_allclose(per_site, 1.0, atol=1e-7)
+    np.testing.assert_allclose(per_site, len(samples.table) / (2 * len(per_site)), rtol=1e-7)
     with pytest.raises(OutputExistsError, match="--fresh"):
         sample_experiment(exp, quiet=True)
 
@@ -317,3 +318,7 @@ def test_buffered_leave_one_site_out_runs_end_to_end(tmp_path, data):
     samples = pd.read_parquet(result.run_dir / "samples" / "samples.parquet")
     assert len(per_site) == samples.loc[samples["label"] == 1, "site_id"].nunique()
     assert (per_site["n_test_sites"] == 1).all()
+    # each site is scored against the background within its buffer (issue 7), and the
+    # log says so with the number of cells
+    assert (per_site["landscape"] == "within_buffer").all()
+    assert "background within buffer_m = 150 m" in (result.run_dir / "run.log").read_text()
