@@ -149,9 +149,11 @@ def _class1(estimator, proba):
 
 
 def _is_linear(final):
+    from mlsites.learners import MeanLossLogisticRegression
+
     coef = getattr(final, "coef_", None)
-    return (coef is not None and type(final).__module__.startswith("sklearn.linear_model")
-            and np.asarray(coef).size == np.shape(np.atleast_2d(coef))[1])
+    linear = isinstance(final, MeanLossLogisticRegression) or type(final).__module__.startswith("sklearn.linear_model")
+    return coef is not None and linear and np.asarray(coef).size == np.shape(np.atleast_2d(coef))[1]
 
 
 def _permutation_pairs(n_layers, n_permutations, rng):
