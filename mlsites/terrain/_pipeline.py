@@ -51,7 +51,8 @@ LOCAL_LAYERS = {
     "roughness": ("max minus min of the 3 x 3 window", "metres"),
     "profile_curvature": ("curvature along the slope line, Zevenbergen & Thorne (1987), convex positive", "1/m"),
     "plan_curvature": ("curvature along the contour, Zevenbergen & Thorne (1987), convex positive", "1/m"),
-    "landform": ("geomorphon landform class, Jasiewicz & Stepinski (2013)", "class"),
+    "landform": ("geomorphon landform class, Jasiewicz & Stepinski (2013); codes from the lowest "
+                 "(1 pit) to the highest relative position (10 peak)", "class"),
 }
 #: Layers that need the whole grid in memory.
 WHOLE_GRID_LAYERS = {

@@ -92,6 +92,8 @@ def test_outputs_are_tiled_compressed_with_metadata(tmp_path, dem_file):
         tags = ds.tags()
         assert ds.nodata == 0 and ds.dtypes[0] == "uint8"
         assert sorted(k for k in tags if k.startswith("class_")) == sorted(f"class_{i}" for i in range(1, 11))
+        # published class names (Jasiewicz & Stepinski 2013), lowest to highest position
+        assert (tags["class_1"], tags["class_5"], tags["class_10"]) == ("pit", "flat", "peak")
     summary = json.loads((tmp_path / "o" / "terrain.json").read_text())
     assert summary["layers"]["slope"]["file"] == "slope.tif"
     assert not [p for p in (tmp_path / "o").iterdir() if p.name.startswith(".")]
