@@ -87,6 +87,8 @@ _NAMED_SECTIONS = {
     # [learners] use = [...]; [learners.<name>] settings passed to the preset
     "learners": None,
 }
+#: Fold methods by the one name each has in experiment files, command-line options,
+#: the splitters' ``describe()`` and fold files.
 FOLD_METHODS = ("square_blocks", "hexagon_blocks", "buffered_leave_one_out", "environmental", "random")
 SURVEY_MODES = ("inside", "weighted")
 LAYER_KINDS = ("continuous", "categorical")
