@@ -1,9 +1,9 @@
 """Run a whole experiment: inputs, samples, spatial cross-validation, models, tables.
 
 :func:`run_experiment` is the body of ``mlsites run``. Every output is built in a
-staging folder beside its destination and renamed into place only when the run
-succeeded, so a failed run leaves nothing half-written and an existing run is
-never replaced unless asked for (``fresh``). Derived terrain layers and the sample
+staging folder beside its destination (:func:`mlsites._files.staged_folder`) and
+renamed into place only when the run succeeded, so a failed run leaves nothing
+half-written and an existing run is never replaced unless asked for (``fresh``). Derived terrain layers and the sample
 table are cached under ``<runs_dir>/.cache`` by a hash of their inputs and
 settings, so a second run only redoes what changed.
 """
@@ -16,8 +16,6 @@ import functools
 import json
 import os
 import re
-import shutil
-import tempfile
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -25,8 +23,9 @@ from pathlib import Path
 import numpy as np
 
 from mlsites import __version__
+from mlsites._files import link_or_copy, staged_folder
 from mlsites.errors import ConfigError, OutputExistsError
-from mlsites.experiment._hashing import file_digest, input_hashes, settings_digest
+from mlsites.experiment._hashing import entry_digest, file_digest, input_hashes, settings_digest
 
 __all__ = ["RunResult", "run_experiment", "sample_experiment", "check_input_layers", "output_roots",
            "samples_key"]
@@ -95,7 +94,7 @@ def samples_key(exp, hashes=None) -> str:
     """Hash of everything the sample table depends on (settings, file bytes, version)."""
     hashes = input_hashes(exp) if hashes is None else hashes
     return settings_digest({"settings": {s: exp[s] for s in _SAMPLE_SECTIONS},
-                            "files": {k: v["sha256"] for k, v in hashes.items()},
+                            "files": {k: entry_digest(v) for k, v in hashes.items()},
                             "version": __version__})[:16]
 
 
@@ -191,28 +190,23 @@ def check_input_layers(exp, grid, log=None) -> dict:
 # ---------------------------------------------------------------- samples
 
 
-def _cached_samples(exp, cache_dir: Path, *, fresh, quiet, log, hashes=None) -> tuple[Path, str, bool]:
-    """Folder of the experiment's sample files in the cache; built unless cached.
+def _cached_samples(exp, cache_dir: Path, grid, *, fresh, quiet, log, hashes):
+    """The experiment's sample set from the cache, built there unless cached.
 
-    ``hashes`` (from :func:`input_hashes`) saves hashing the inputs again when the
-    caller already has them.
+    Returns ``(samples, key, cached)``. A table just built is passed on in memory
+    (it equals its parquet file, see :func:`prepare_samples`); a cached one is
+    read from the cache folder. Either way ``samples.folder`` is the cache folder.
     """
     from mlsites.experiment._samples import prepare_samples
 
-    hashes = input_hashes(exp) if hashes is None else hashes
     key = samples_key(exp, hashes)
     folder = cache_dir / f"samples-{key}"
     if (folder / "samples.parquet").exists() and not fresh:
         log(f"sample table: cached in {folder.name}")
-        return folder, key, True
-    cache_dir.mkdir(parents=True, exist_ok=True)
-    staging = _staging_dir(cache_dir, f".samples-{key}.partial-")
-    try:
-        prepare_samples(exp, staging, cache_dir=cache_dir, fresh=fresh, quiet=quiet, log=log, hashes=hashes)
-        _swap_into_place(staging, folder)
-    finally:
-        shutil.rmtree(staging, ignore_errors=True)
-    return folder, key, False
+        return _load_sample_set(folder), key, True
+    samples = prepare_samples(exp, folder, grid=grid, cache_dir=cache_dir, fresh=True, quiet=quiet, log=log,
+                              hashes=hashes)
+    return samples, key, False
 
 
 def _load_sample_set(folder: Path):
@@ -224,6 +218,11 @@ def _load_sample_set(folder: Path):
     table = pd.read_parquet(folder / "samples.parquet")
     return SampleSet(table=table, features=list(summary["features"]), categorical=list(summary["categorical"]),
                      folder=folder, summary=summary)
+
+
+def _sample_files(folder: Path):
+    """The files of a sample folder (not staging leftovers)."""
+    return sorted(p for p in folder.iterdir() if p.is_file() and not p.name.startswith("."))
 
 
 def output_roots(exp) -> tuple[Path, Path]:
@@ -264,7 +263,7 @@ def sample_experiment(path, *, out_dir=None, fresh=False, quiet=False, log=None)
     Returns
     -------
     SampleSet
-        Read back from ``out_dir``.
+        With ``folder`` = ``out_dir``.
 
     Raises
     ------
@@ -273,8 +272,10 @@ def sample_experiment(path, *, out_dir=None, fresh=False, quiet=False, log=None)
     ConfigError, InputError, InsufficientDataError, ...
         Before anything is written to ``out_dir``.
     """
+    from dataclasses import replace
+
     from mlsites.experiment._config import Experiment, load_experiment
-    from mlsites.experiment._samples import publish_samples
+    from mlsites.experiment._samples import SAMPLE_FILES
     from mlsites.grid import read_grid
 
     log = _Log(log)
@@ -284,18 +285,16 @@ def sample_experiment(path, *, out_dir=None, fresh=False, quiet=False, log=None)
     if (out_dir / "samples.parquet").exists() and not fresh:
         raise OutputExistsError(f"{out_dir}: sample files exist already; use --fresh to replace them "
                                 "or --out for another folder")
-    check_input_layers(exp, read_grid(exp["study"]["dem"]), log)
+    grid = read_grid(exp["study"]["dem"])
+    check_input_layers(exp, grid, log)
+    cache_dir = runs_dir / ".cache"
     with log.stage("samples"):
-        folder, _, _ = _cached_samples(exp, runs_dir / ".cache", fresh=fresh, quiet=quiet, log=log)
-    out_dir.mkdir(parents=True, exist_ok=True)
-    staging = Path(tempfile.mkdtemp(prefix=".samples.partial-", dir=out_dir))
-    try:
-        for p in folder.iterdir():
-            shutil.copy2(p, staging / p.name)
-        publish_samples(staging, out_dir)
-    finally:
-        shutil.rmtree(staging, ignore_errors=True)
-    return _load_sample_set(out_dir)
+        hashes = input_hashes(exp, memo_dir=cache_dir)
+        samples, _, _ = _cached_samples(exp, cache_dir, grid, fresh=fresh, quiet=quiet, log=log, hashes=hashes)
+    with staged_folder(out_dir, files=SAMPLE_FILES) as staging:
+        for p in _sample_files(samples.folder):
+            link_or_copy(p, staging / p.name)
+    return replace(samples, folder=out_dir)
 
 
 # ---------------------------------------------------------------- the run
@@ -332,17 +331,6 @@ def _reserve(target: Path, fresh: bool, what: str, name: str):
         )
 
 
-def _swap_into_place(staging: Path, target: Path):
-    """Rename ``staging`` to ``target``; an old ``target`` is removed only afterwards."""
-    old = None
-    if target.exists():
-        old = target.with_name(f".{target.name}.old-{os.getpid()}-{time.time_ns()}")
-        os.replace(target, old)
-    os.replace(staging, target)
-    if old is not None:
-        shutil.rmtree(old, ignore_errors=True)
-
-
 @contextlib.contextmanager
 def _convergence_notes(log, what):
     """Count non-convergence warnings of fits in this process into one log line.
@@ -365,15 +353,6 @@ def _convergence_notes(log, what):
     if n:
         log(f"{what}: {n} fit(s) stopped at their iteration limit before converging; raise max_iter "
             "(or tol) in the learner's [learners.<name>] table")
-
-
-def _staging_dir(parent: Path, prefix: str) -> Path:
-    """A fresh hidden folder in ``parent`` with the usual permissions (mkdtemp gives 0700)."""
-    folder = Path(tempfile.mkdtemp(prefix=prefix, dir=parent))
-    umask = os.umask(0)
-    os.umask(umask)
-    folder.chmod(0o777 & ~umask)
-    return folder
 
 
 def _progress(total, desc, quiet):
@@ -422,9 +401,9 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
     ``roc_curves.png``, ``dropped_records.csv``, ``sampling.json``, ``run.log`` and
     ``samples/`` (the sample table and folds every learner used). After
     cross-validation each learner is refitted on all samples and saved with
-    :func:`save_model`. The sample table is always read back from its parquet
-    file, so a cached and a fresh run feed the learners identical data and give
-    identical metrics files.
+    :func:`save_model`. A table just built is used as it is in memory, which
+    equals its parquet file, so a cached and a fresh run feed the learners
+    identical data and give identical metrics files (tested).
     """
     import pandas as pd
 
@@ -452,19 +431,20 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
     with log.stage("checks"):
         grid = read_grid(exp["study"]["dem"])
         check_input_layers(exp, grid, log)
-    runs_dir.mkdir(parents=True, exist_ok=True)
-    models_root.mkdir(parents=True, exist_ok=True)
-    staging = _staging_dir(runs_dir, f".{name}.partial-")
-    model_staging = _staging_dir(models_root, f".{name}.partial-")
-    try:
+    cache_dir = runs_dir / ".cache"
+    with staged_folder(run_dir) as staging, staged_folder(models_dir) as model_staging:
         with log.stage("samples"):
-            hashes = input_hashes(exp)
-            folder, key, cached = _cached_samples(exp, runs_dir / ".cache", fresh=fresh, quiet=quiet, log=log,
-                                                  hashes=hashes)
-            shutil.copytree(folder, staging / "samples")
+            hashes = input_hashes(exp, memo_dir=cache_dir)
+            samples, key, cached = _cached_samples(exp, cache_dir, grid, fresh=fresh, quiet=quiet, log=log,
+                                                   hashes=hashes)
+            # The run keeps the files every learner used; cache files are never
+            # changed in place (every writer renames a new file over the old), so
+            # a hard link is as safe as a copy.
+            (staging / "samples").mkdir()
+            for p in _sample_files(samples.folder):
+                link_or_copy(p, staging / "samples" / p.name)
             for fname in _SAMPLE_REPORTS:
-                shutil.copy2(folder / fname, staging / fname)
-            samples = _load_sample_set(staging / "samples")
+                link_or_copy(samples.folder / fname, staging / fname)
             table, features, categorical = samples.table, samples.features, samples.categorical
             n_sites = int(table.loc[table["label"] == 1, "site_id"].nunique())
             log(f"samples: {int((table['label'] == 1).sum())} site cells of {n_sites} sites, "
@@ -520,10 +500,5 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
         # A run that appeared meanwhile (another process) is not replaced without fresh.
         _reserve(run_dir, fresh, "output folder", name)
         _reserve(models_dir, fresh, "model folder", name)
-        _swap_into_place(model_staging, models_dir)
-        _swap_into_place(staging, run_dir)
-    finally:
-        shutil.rmtree(staging, ignore_errors=True)
-        shutil.rmtree(model_staging, ignore_errors=True)
     summary = pd.read_csv(run_dir / "metrics_summary.csv")
     return RunResult(name=name, run_dir=run_dir, models_dir=models_dir, summary=summary, manifest=manifest)

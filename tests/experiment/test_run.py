@@ -317,3 +317,27 @@ def test_buffered_leave_one_site_out_runs_end_to_end(tmp_path, data):
     samples = pd.read_parquet(result.run_dir / "samples" / "samples.parquet")
     assert len(per_site) == samples.loc[samples["label"] == 1, "site_id"].nunique()
     assert (per_site["n_test_sites"] == 1).all()
+
+
+def test_editing_a_shapefile_dbf_invalidates_the_sample_cache(tmp_path, data):
+    # issue 7: the .dbf holds the site ids; a cache keyed on the .shp alone reused a
+    # stale table. Only the .dbf is replaced here (by one written elsewhere).
+    import geopandas as gpd
+
+    sites = gpd.read_file(data / "sites.gpkg")
+    sites.to_file(tmp_path / "sites.shp")
+    renamed = sites.assign(site_id=["R" + s[1:] for s in sites["site_id"]])
+    (tmp_path / "other").mkdir()
+    renamed.to_file(tmp_path / "other" / "sites.shp")
+    exp = write_experiment(tmp_path, data, sites=str(tmp_path / "sites.shp"), use=["fuzzy"])
+    first = sample_experiment(exp, out_dir=tmp_path / "a", quiet=True)
+    (tmp_path / "sites.dbf").write_bytes((tmp_path / "other" / "sites.dbf").read_bytes())
+    lines = []
+    second = sample_experiment(exp, out_dir=tmp_path / "b", quiet=True, log=lines.append)
+    assert not any(line.startswith("sample table: cached") for line in lines)
+    ids = lambda s: set(s.table.loc[s.table["label"] == 1, "site_id"])  # noqa: E731
+    assert ids(second) == {"R" + i[1:] for i in ids(first)}
+    # unchanged inputs: the cache is used
+    lines.clear()
+    sample_experiment(exp, out_dir=tmp_path / "c", quiet=True, log=lines.append)
+    assert any(line.startswith("sample table: cached") for line in lines)
