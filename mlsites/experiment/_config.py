@@ -106,20 +106,83 @@ class Experiment:
     path: Path
     settings: dict
     sources: tuple
+    #: ``(file, text)`` of every file merged, the one read last (the top file) first.
+    texts: tuple = ()
+    #: Dotted keys set by command-line flags rather than by a file.
+    overrides: frozenset = frozenset()
 
     def __getitem__(self, section):
         return self.settings[section]
 
+    def where(self, key: str) -> str:
+        """``file:line`` of the setting ``key`` (dotted, ``"inputs.soil.band"``).
 
-def _line_of(text: str, key: str) -> int | None:
-    m = re.search(rf"^\s*\"?{re.escape(key)}\"?\s*=", text, flags=re.M)
-    if m is None:
-        m = re.search(rf"^\s*\[\s*{re.escape(key)}\s*\]", text, flags=re.M)
-    return text.count("\n", 0, m.start()) + 1 if m else None
+        The file is the one whose value counts (a variant before its ``extends``
+        base); the line is that of the key in its own table (an inline table's line
+        for keys inside it). A key set by no file gives the top file alone, one set
+        by a flag "command-line flags".
+        """
+        return _locate(self.texts, key, self.path, self.overrides)
 
 
-def _read_toml(path: Path, chain: tuple) -> tuple[dict, tuple]:
+_HEADER_RE = re.compile(r"^\s*\[\[?\s*([^\]]+?)\s*\]\]?\s*(?:#.*)?$")
+_KEY_RE = re.compile(r"^\s*((?:\"[^\"]*\"|'[^']*'|[A-Za-z0-9_-]+)(?:\s*\.\s*(?:\"[^\"]*\"|'[^']*'|[A-Za-z0-9_-]+))*)\s*=")
+
+
+def _key_parts(dotted: str) -> tuple:
+    return tuple(p.strip().strip("\"'") for p in re.findall(r"\"[^\"]*\"|'[^']*'|[^.]+", dotted))
+
+
+def _line_in(text: str, key: tuple) -> int | None:
+    """Line of ``key`` (a tuple of table and key names) in one TOML text.
+
+    Tables are followed from their ``[header]`` lines, so a key that appears in
+    several tables (``path``) is found in the right one. A key inside an inline
+    table (``soil = { path = ..., band = 2 }``) gives the inline table's line; a
+    table given only by its header gives the header's line.
+    """
+    table: tuple = ()
+    best = None
+    for number, line in enumerate(text.splitlines(), start=1):
+        m = _HEADER_RE.match(line)
+        if m:
+            table = _key_parts(m.group(1))
+            if table == key:
+                return number
+            continue
+        m = _KEY_RE.match(line)
+        if not m:
+            continue
+        full = table + _key_parts(m.group(1))
+        if full == key:
+            return number
+        if key[: len(full)] == full and best is None:
+            best = number  # an inline table (or array) holding the key
+    return best
+
+
+def _locate(texts, key: str, default_path, overrides=frozenset()) -> str:
+    if key in overrides:
+        return "command-line flags"
+    parts = _key_parts(key)
+    for path, text in texts:
+        line = _line_in(text, parts)
+        if line is not None:
+            return f"{path}:{line}"
+    for path, text in texts:  # a key not written anywhere: the table that lacks it
+        for n in range(len(parts) - 1, 0, -1):
+            line = _line_in(text, parts[:n])
+            if line is not None:
+                return f"{path}:{line}"
+    return str(default_path)
+
+
+def _read_toml(path: Path, chain: tuple, named_by: str | None = None) -> tuple[dict, tuple, tuple]:
+    """Data of an experiment file merged over its bases, the files (base first) and their texts (top first)."""
     if not path.exists():
+        if named_by:
+            raise ConfigError(f"{named_by}: extends = \"{path.name}\": file {path} not found; give the base file's "
+                              "name relative to the file that extends it")
         raise ConfigError(f"{path}: experiment file not found")
     if path in chain:
         raise ConfigError(f"{path}: 'extends' forms a loop ({' -> '.join(str(p) for p in chain + (path,))})")
@@ -131,11 +194,12 @@ def _read_toml(path: Path, chain: tuple) -> tuple[dict, tuple]:
     _absolutise(data, path.parent, text, path)
     base = data.pop("extends", None)
     if base is None:
-        return data, chain + (path,)
+        return data, chain + (path,), ((path, text),)
+    where = f"{path}:{_line_in(text, ('extends',))}"
     if not isinstance(base, str):
-        raise ConfigError(f"{path}: 'extends' must be a file name (string), got {base!r}")
-    base_data, sources = _read_toml((path.parent / base).resolve(), chain + (path,))
-    return _merge(base_data, data), _order(sources, path)
+        raise ConfigError(f"{where}: 'extends' must be a file name (string), got {base!r}")
+    base_data, sources, texts = _read_toml((path.parent / base).resolve(), chain + (path,), named_by=where)
+    return _merge(base_data, data), _order(sources, path), ((path, text),) + texts
 
 
 def _order(sources, path):
@@ -179,14 +243,19 @@ def _check_type(value, types):
     return isinstance(value, types)
 
 
-def experiment_from_dict(data: dict, *, path: Path, text: str = "", sources=()) -> Experiment:
-    """Validate a merged experiment dict (paths already absolute) into an :class:`Experiment`."""
+def experiment_from_dict(data: dict, *, path: Path, text: str = "", sources=(), texts=(),
+                         overrides=frozenset()) -> Experiment:
+    """Validate a merged experiment dict (paths already absolute) into an :class:`Experiment`.
+
+    ``texts`` are ``(file, text)`` pairs of the files merged, top file first (from
+    :func:`load_experiment`), for the line of each problem; ``text`` alone stands
+    for the one file ``path``. ``overrides`` are dotted keys set by flags.
+    """
     problems: list[str] = []
+    texts = tuple(texts) or (((path, text),) if text else ())
 
     def bad(key, msg):
-        line = _line_of(text, key.split(".")[-1]) if text else None
-        where = f"{path}:{line}" if line else f"{path}"
-        problems.append(f"{where}: [{key}] {msg}")
+        problems.append(f"{_locate(texts, key, path, overrides)}: [{key}] {msg}")
 
     settings: dict = {}
     for section in data:
@@ -218,7 +287,8 @@ def experiment_from_dict(data: dict, *, path: Path, text: str = "", sources=()) 
     if problems:
         raise ConfigError(f"{len(problems)} problem(s) in the experiment:\n" + "\n".join(problems))
     name = settings["study"]["name"] or path.stem
-    return Experiment(name=name, path=path, settings=settings, sources=tuple(sources) or (path,))
+    return Experiment(name=name, path=path, settings=settings, sources=tuple(sources) or (path,), texts=texts,
+                      overrides=frozenset(overrides))
 
 
 def _check_inputs(inputs, bad):
@@ -311,8 +381,9 @@ def _check_values(s, bad):
         bad("sampling.survey_mode", f"{sa['survey_mode']!r} is not one of {', '.join(SURVEY_MODES)}")
     if sa["survey_mode"] == "weighted" and not sa["effort_field"]:
         bad("sampling.effort_field", "survey_mode = \"weighted\" needs effort_field, the column of survey effort")
-    if sa["site_buffer_m"] < 0 or sa["exclusion_m"] < 0:
-        bad("sampling.site_buffer_m", "distances must be zero or positive")
+    for key in ("site_buffer_m", "exclusion_m"):
+        if sa[key] < 0:
+            bad(f"sampling.{key}", f"{sa[key]:g} m; distances must be zero or positive (metres)")
     if sa["background_count"] is not None and sa["background_count"] < 1:
         bad("sampling.background_count", "must be at least 1")
     if sa["background_fraction"] is not None and not 0 < sa["background_fraction"] <= 1:
@@ -347,8 +418,8 @@ def load_experiment(path) -> Experiment:
         With every problem found, one per line, each naming file, key and line.
     """
     path = Path(path).resolve()
-    data, sources = _read_toml(path, ())
-    return experiment_from_dict(data, path=path, text=path.read_text(encoding="utf-8"), sources=sources)
+    data, sources, texts = _read_toml(path, ())
+    return experiment_from_dict(data, path=path, sources=sources, texts=texts)
 
 
 #: Command-line flag names of ``mlsites sample`` -> (section, key) of the experiment.
@@ -388,10 +459,10 @@ def experiment_from_flags(experiment=None, *, inputs=None, **flags) -> Experimen
     """
     if experiment is not None:
         path = Path(experiment).resolve()
-        data, sources = _read_toml(path, ())
-        text = path.read_text(encoding="utf-8")
+        data, sources, texts = _read_toml(path, ())
     else:
-        path, data, sources, text = Path.cwd() / "command-line flags", {}, (), ""
+        path, data, sources, texts = Path.cwd() / "command-line flags", {}, (), ()
+    overrides = set()
     for flag, value in flags.items():
         if flag not in FLAG_KEYS:
             raise ConfigError(f"unknown option {flag!r}")
@@ -400,6 +471,8 @@ def experiment_from_flags(experiment=None, *, inputs=None, **flags) -> Experimen
         section, key = FLAG_KEYS[flag]
         is_path = SCHEMA[section][key][2]
         data.setdefault(section, {})[key] = str(Path(value).resolve()) if is_path else value
+        overrides.add(f"{section}.{key}")
     for name, (p, kind) in (inputs or {}).items():
         data.setdefault("inputs", {})[name] = {"path": str(Path(p).resolve()), "kind": kind}
-    return experiment_from_dict(data, path=path, text=text, sources=sources)
+        overrides |= {f"inputs.{name}", f"inputs.{name}.path", f"inputs.{name}.kind"}
+    return experiment_from_dict(data, path=path, sources=sources, texts=texts, overrides=overrides)
