@@ -315,6 +315,8 @@ def _check_inputs(inputs, bad):
             bad(f"inputs.{name}", "missing path")
         elif not Path(clean["path"]).exists():
             bad(f"inputs.{name}.path", f"file not found: {clean['path']}")
+        if clean["band"] < 1:
+            bad(f"inputs.{name}.band", f"band {clean['band']}; bands are numbered from 1")
         if clean["kind"] not in LAYER_KINDS:
             bad(f"inputs.{name}.kind", f"{clean['kind']!r} is not one of {', '.join(LAYER_KINDS)}")
         out[name] = clean

@@ -127,7 +127,8 @@ def check_input_layers(exp, grid, log=None) -> dict:
     Raises
     ------
     ConfigError
-        A layer declared continuous looks categorical, or the reverse.
+        A band the raster does not have, a layer declared continuous that looks
+        categorical, or the reverse.
 
     Notes
     -----
@@ -154,8 +155,9 @@ def check_input_layers(exp, grid, log=None) -> dict:
                 log(f"aligned {name} from {_crs_label(src.crs)}, {abs(src.res[0]):g} x {abs(src.res[1]):g} "
                     f"cells onto the study grid ({how})")
             status[name] = "aligned" if aligned else "on grid"
-            if not 1 <= band <= src.count:
-                continue  # reported with the file name when the layer is read
+            if band > src.count:
+                raise ConfigError(f"{exp.where(f'inputs.{name}.band')}: [inputs.{name}] band = {band}, but "
+                                  f"{path} has {src.count} band(s); give a band from 1 to {src.count}")
             shape = (min(src.height, _INSPECT_CELLS), min(src.width, _INSPECT_CELLS))
             values = src.read(band, out_shape=shape, resampling=Resampling.nearest, masked=True)
             dtype = np.dtype(src.dtypes[band - 1])
@@ -164,7 +166,7 @@ def check_input_layers(exp, grid, log=None) -> dict:
         values = values[np.isfinite(values)]
         codes = np.unique(values)
         class_tags = sorted(k for k in tags if k.startswith("class_"))
-        where = f"{exp.path}: [inputs.{name}]"
+        where = f"{exp.where(f'inputs.{name}.kind')}: [inputs.{name}]"
         if kind == "continuous":
             reason = None
             if class_tags:
@@ -481,7 +483,9 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
                                          "params": exp["learners"]["settings"].get(lname, {})},
                                metrics=rows.loc[lname].to_dict() if lname in rows.index else {},
                                extra={"experiment": exp.name, "run": name,
-                                      "n_samples": int(len(table)), "n_sites": n_sites})
+                                      "n_samples": int(len(table)), "n_sites": n_sites,
+                                      # where the [inputs] features come from, so maps read the same band
+                                      "input_layers": exp["inputs"]})
                     bar.update(1)
                     log(f"model {lname}: fitted on all {len(table)} samples in {time.perf_counter() - t0:.1f} s")
         log(f"run {name}: done in {time.perf_counter() - t_start:.1f} s")

@@ -225,7 +225,8 @@ def prepare_samples(exp, out_dir, *, grid=None, cache_dir=None, fresh=False, qui
     table = pd.concat([pres.assign(label=1), bg.assign(label=0, site_id="")], ignore_index=True)
     names = list(layers)
     values = extract_values({n: p for n, (p, _) in layers.items()}, table["row"].to_numpy(),
-                            table["col"].to_numpy(), grid, kinds={n: k for n, (_, k) in layers.items()})
+                            table["col"].to_numpy(), grid, kinds={n: k for n, (_, k) in layers.items()},
+                            bands={n: spec["band"] for n, spec in exp["inputs"].items()})
     table = pd.concat([table, values], axis=1)
     dropped_rows = [{"source_row": r, "site_id": i, "reason": why}
                     for r, i, why in zip(records.dropped["source_row"], records.dropped["site_id"],

@@ -9,6 +9,7 @@ when the file is complete.
 from __future__ import annotations
 
 import contextlib
+import numbers
 import os
 from pathlib import Path
 
@@ -116,10 +117,12 @@ class AlignedRaster(contextlib.AbstractContextManager):
         self.grid = grid
         self.kind = kind
         self._src = open_raster(path)
-        if band < 1 or band > self._src.count:
+        if isinstance(band, bool) or not isinstance(band, numbers.Integral) or not 1 <= band <= self._src.count:
+            count = self._src.count
             self._src.close()
-            raise InputError(f"{path}: band {band} requested, the raster has {self._src.count}")
-        self.band = band
+            raise InputError(f"{path}: band {band!r} asked for, but the raster has {count} band(s); "
+                             f"give a band from 1 to {count}")
+        self.band = int(band)
         self.nodata = self._src.nodata
         self.reprojected = not grid.matches(self._src.crs, self._src.transform,
                                             (self._src.height, self._src.width))

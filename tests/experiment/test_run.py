@@ -341,3 +341,45 @@ def test_editing_a_shapefile_dbf_invalidates_the_sample_cache(tmp_path, data):
     lines.clear()
     sample_experiment(exp, out_dir=tmp_path / "c", quiet=True, log=lines.append)
     assert any(line.startswith("sample table: cached") for line in lines)
+
+
+def _two_band(data, path):
+    """soil.tif's codes as band 1 and a continuous field (DEM heights / 7) as band 2."""
+    with rasterio.open(data / "soil.tif") as src:
+        profile, codes = src.profile, src.read(1)
+    with rasterio.open(data / "dem.tif") as src:
+        heights = src.read(1)
+    profile.update(count=2, dtype="float32", nodata=-9999.0)
+    with rasterio.open(path, "w", **profile) as dst:
+        dst.write(codes.astype("float32"), 1)
+        dst.write((heights / 7.0).astype("float32"), 2)
+    return path
+
+
+def test_band_asked_for_is_the_band_read(tmp_path, data):
+    # issue 7: band = 2 was read from band 1. Reference: rasterio's own read of band 2.
+    layers = _two_band(data, tmp_path / "two.tif")
+    write_experiment(tmp_path, data, use=["fuzzy"])
+    (tmp_path / "b2.toml").write_text(f'extends = "tiny.toml"\n[study]\nname = "b2"\n[inputs]\n'
+                                      f'soil = {{ path = "{layers}", kind = "continuous", band = 2 }}\n')
+    samples = sample_experiment(tmp_path / "b2.toml", quiet=True)
+    with rasterio.open(layers) as src:
+        band2 = src.read(2)
+    t = samples.table
+    np.testing.assert_array_equal(t["soil"].to_numpy(), band2[t["row"], t["col"]].astype(np.float64))
+
+
+def test_band_that_does_not_exist_is_refused_before_any_work(tmp_path, data):
+    from click.testing import CliRunner
+
+    from mlsites.cli.main import cli
+
+    write_experiment(tmp_path, data, use=["fuzzy"])
+    (tmp_path / "b5.toml").write_text(f'extends = "tiny.toml"\n[study]\nname = "b5"\n[inputs]\n'
+                                      f'soil = {{ path = "{data / "soil.tif"}", kind = "categorical", band = 5 }}\n')
+    result = CliRunner().invoke(cli, ["run", str(tmp_path / "b5.toml"), "--quiet"])
+    assert result.exit_code == 2, result.output
+    lines = result.stderr.strip().splitlines()
+    assert len(lines) == 1 and "Traceback" not in result.output
+    assert f"b5.toml:5: [inputs.soil] band = 5, but {data / 'soil.tif'} has 1 band(s)" in lines[0]
+    assert not (tmp_path / "runs").exists()  # before any work: not even the cache
