@@ -27,8 +27,8 @@ from mlsites._files import link_or_copy, staged_folder
 from mlsites.errors import ConfigError, OutputExistsError
 from mlsites.experiment._hashing import entry_digest, file_digest, input_hashes, settings_digest
 
-__all__ = ["RunResult", "run_experiment", "sample_experiment", "check_input_layers", "output_roots",
-           "samples_key"]
+__all__ = ["RunResult", "run_experiment", "sample_experiment", "check_input_layers", "check_learner_settings",
+           "output_roots", "samples_key"]
 
 #: An integer layer declared continuous with this many distinct codes or fewer (but
 #: more than two, where both kinds give the same model) is taken for a class map.
@@ -302,22 +302,117 @@ def sample_experiment(path, *, out_dir=None, fresh=False, quiet=False, log=None)
 # ---------------------------------------------------------------- the run
 
 
+#: Learner settings the run sets itself, and where the user sets them instead.
+_RUN_SET = {"random_state": "[study] seed", "n_jobs": "--jobs", "categorical_features": "the kind of each layer"}
+#: Settings that only scale the work; a dry fit caps them so it stays instant.
+_SIZE_KEYS = ("n_estimators", "max_iter")
+
+
+def _learner_params(exp, name) -> dict:
+    params = dict(exp["learners"]["settings"].get(name, {}))
+    for key, value in params.items():
+        if isinstance(value, list):  # TOML has no tuples (hidden_layer_sizes and the like)
+            params[key] = tuple(value)
+    return params
+
+
+def _valid_settings(name) -> list[str]:
+    """Setting names of a learner: its estimator's parameters and the preset's options."""
+    import inspect
+
+    from mlsites.learners import LEARNERS, make_learner
+
+    model = make_learner(name).named_steps["model"]
+    options = [p.name for p in inspect.signature(LEARNERS[name]).parameters.values()
+               if p.kind is p.KEYWORD_ONLY]
+    return sorted((set(model.get_params(deep=False)) | set(options)) - set(_RUN_SET))
+
+
+def _dry_table(n_categorical):
+    """24 invented rows (half sites) with two numeric layers and the categorical ones."""
+    import pandas as pd
+
+    rng = np.random.default_rng(0)
+    columns = {"a": rng.random(24), "b": rng.random(24)}
+    columns.update({f"c{i}": np.tile([1.0, 2.0, 3.0], 8) for i in range(n_categorical)})
+    return pd.DataFrame(columns), np.r_[np.ones(12, dtype=int), np.zeros(12, dtype=int)]
+
+
+def check_learner_settings(exp) -> None:
+    """Check the names and values of every ``[learners.<name>]`` setting before any work.
+
+    Names are checked against the learner's settings; values by scikit-learn's own
+    parameter validation and then by a dry fit on 24 invented rows (with the
+    iteration and tree counts capped, so it takes a moment), which also catches
+    combinations that are only refused when fitting (a penalty the solver lacks).
+
+    Raises
+    ------
+    ConfigError
+        One line per problem, with file and line, in the words of the experiment
+        file; the valid settings of a learner are listed once.
+    """
+    import warnings
+
+    from mlsites.learners import fit_learner, make_learner
+
+    if not exp["learners"]["use"]:
+        raise ConfigError(f"{exp.where('learners.use')}: [learners] use is empty; name at least one learner")
+    n_categorical = min(1, sum(spec["kind"] == "categorical" for spec in exp["inputs"].values())
+                        + ("landform" in exp["terrain"]["layers"]))
+    problems = []
+    for name in exp["learners"]["use"]:
+        params = _learner_params(exp, name)
+        valid = _valid_settings(name)
+
+        def bad(key, msg, name=name):
+            problems.append(f"{exp.where(f'learners.{name}.{key}')}: [learners.{name}] {msg}")
+
+        unknown = [k for k in params if k not in valid and k not in _RUN_SET]
+        for key in [k for k in params if k in _RUN_SET]:
+            bad(key, f"{key} is set by the run; use {_RUN_SET[key]} instead")
+        for key in unknown:
+            bad(key, f"unknown setting {key!r}")
+        if unknown:
+            problems[-1] += f"; settings of {name} are {', '.join(valid)}"
+        if unknown or any(k in _RUN_SET for k in params):
+            continue
+        learner = make_learner(name, random_state=exp["study"]["seed"],
+                               categorical_features=[f"c{i}" for i in range(n_categorical)], **params)
+        model = learner.named_steps["model"]
+        if hasattr(model, "_parameter_constraints"):
+            try:
+                model._validate_params()
+            except ValueError as exc:  # sklearn's InvalidParameterError is a ValueError
+                m = re.match(r"The '(\w+)' parameter of \w+ must be (.*)\. Got (.*) instead\.", str(exc))
+                if m:
+                    bad(m.group(1), f"{m.group(1)} = {params.get(m.group(1), m.group(3))!r} is not allowed: "
+                                    f"it must be {m.group(2)}")
+                else:
+                    problems.append(f"{exp.where(f'learners.{name}')}: [learners.{name}] {str(exc).splitlines()[0]}")
+                continue
+        current = model.get_params(deep=False)
+        model.set_params(**{k: min(current[k], 2) for k in _SIZE_KEYS if isinstance(current.get(k), int)})
+        X, y = _dry_table(n_categorical)
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                fit_learner(learner, X, y, sample_weight=np.ones(len(y)))
+        except (ValueError, TypeError) as exc:
+            problems.append(f"{exp.where(f'learners.{name}')}: [learners.{name}] these settings cannot be "
+                            f"fitted: {str(exc).splitlines()[0]}")
+    if problems:
+        raise ConfigError("\n".join(problems) if len(problems) == 1 else
+                          f"{len(problems)} problems in the learner settings:\n" + "\n".join(problems))
+
+
 def _learner_factories(exp, categorical, seed):
+    """One learner factory per learner in use (settings checked by :func:`check_learner_settings`)."""
     from mlsites.learners import make_learner
 
-    factories = {}
-    for name in exp["learners"]["use"]:
-        params = dict(exp["learners"]["settings"].get(name, {}))
-        for key, value in params.items():
-            if isinstance(value, list):  # TOML has no tuples (hidden_layer_sizes and the like)
-                params[key] = tuple(value)
-        factory = functools.partial(make_learner, name, random_state=seed,
-                                    categorical_features=tuple(categorical), **params)
-        factory()  # unknown settings fail here, before any work
-        factories[name] = factory
-    if not factories:
-        raise ConfigError(f"{exp.path}: [learners] use is empty; name at least one learner")
-    return factories
+    return {name: functools.partial(make_learner, name, random_state=seed,
+                                    categorical_features=tuple(categorical), **_learner_params(exp, name))
+            for name in exp["learners"]["use"]}
 
 
 def _samples_only(run_dir: Path) -> bool:
@@ -433,6 +528,7 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
     with log.stage("checks"):
         grid = read_grid(exp["study"]["dem"])
         check_input_layers(exp, grid, log)
+        check_learner_settings(exp)
     cache_dir = runs_dir / ".cache"
     with staged_folder(run_dir) as staging, staged_folder(models_dir) as model_staging:
         with log.stage("samples"):

@@ -184,7 +184,7 @@ def test_failures_leave_nothing_behind(tmp_path, data, case):
         match = r"(?i)fold \d+ has no (presences|site)"
     else:
         exp = write_experiment(tmp_path, tmp_path, use=["logistic"], extra="[learners.logistic]\nn_trees = 5\n")
-        match = "unknown parameter"
+        match = r"\[learners.logistic\] unknown setting 'n_trees'; settings of logistic are .*\bC\b"
     for name in ("dem.tif", "soil.tif", "streams.gpkg", "sites.gpkg"):
         target = tmp_path / name
         if not target.exists():
@@ -383,3 +383,28 @@ def test_band_that_does_not_exist_is_refused_before_any_work(tmp_path, data):
     assert len(lines) == 1 and "Traceback" not in result.output
     assert f"b5.toml:5: [inputs.soil] band = 5, but {data / 'soil.tif'} has 1 band(s)" in lines[0]
     assert not (tmp_path / "runs").exists()  # before any work: not even the cache
+
+
+@pytest.mark.parametrize("extra, fragment", [
+    # scikit-learn's own constraint of C (LogisticRegression: float in (0, inf])
+    ("[learners.logistic]\nC = -1\n", "[learners.logistic] C = -1 is not allowed: it must be a float in the range (0.0, inf]"),
+    # refused only when fitting: lbfgs has no l1 penalty (scikit-learn)
+    ("[learners.logistic]\npenalty = \"l1\"\n", "[learners.logistic] these settings cannot be fitted"),
+    ("[learners.logistic]\nrandom_state = 1\n", "random_state is set by the run; use [study] seed"),
+    ("[learners.logistic]\nsplines = 1\n", "[learners.logistic] these settings cannot be fitted: splines"),
+])
+def test_invalid_learner_settings_are_one_line_before_any_work(tmp_path, data, extra, fragment):
+    from click.testing import CliRunner
+
+    from mlsites.cli.main import cli
+
+    exp = write_experiment(tmp_path, data, use=["logistic", "fuzzy"], extra=extra)
+    key = extra.splitlines()[1].split(" =")[0]
+    line = exp.read_text().splitlines().index(extra.splitlines()[1]) + 1
+    result = CliRunner().invoke(cli, ["run", str(exp), "--quiet"])
+    assert result.exit_code == 2, result.output
+    lines = result.stderr.strip().splitlines()
+    assert len(lines) == 1 and "Traceback" not in result.output, result.stderr
+    where = f"{exp}:{line}" if key in ("C", "random_state") else f"{exp}:"
+    assert lines[0].startswith(f"mlsites: error: {where}") and fragment in lines[0], lines[0]
+    assert not (tmp_path / "runs").exists()
