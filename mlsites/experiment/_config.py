@@ -91,6 +91,8 @@ _NAMED_SECTIONS = {
 #: the splitters' ``describe()`` and fold files.
 FOLD_METHODS = ("square_blocks", "hexagon_blocks", "buffered_leave_one_out", "environmental", "random")
 SURVEY_MODES = ("inside", "weighted")
+#: Name of the zone below the last zone target (mlsites.evaluation's remainder).
+REMAINDER_ZONE = "low"
 LAYER_KINDS = ("continuous", "categorical")
 
 
@@ -284,8 +286,10 @@ def experiment_from_dict(data: dict, *, path: Path, text: str = "", sources=(), 
     settings["distances"] = _check_distances(data.get("distances", {}), bad)
     settings["learners"] = _check_learners(data.get("learners", {}), bad)
     _check_values(settings, bad)
+    if len(problems) == 1:
+        raise ConfigError(problems[0])
     if problems:
-        raise ConfigError(f"{len(problems)} problem(s) in the experiment:\n" + "\n".join(problems))
+        raise ConfigError(f"{len(problems)} problems in the experiment:\n" + "\n".join(problems))
     name = settings["study"]["name"] or path.stem
     return Experiment(name=name, path=path, settings=settings, sources=tuple(sources) or (path,), texts=texts,
                       overrides=frozenset(overrides))
@@ -402,13 +406,43 @@ def _check_values(s, bad):
     targets = s["evaluation"]["zone_targets"]
     prev = 0.0
     for zone, share in targets.items():
-        if not isinstance(share, _NUM) or not prev < share <= 1:
-            bad(f"evaluation.zone_targets.{zone}", "site shares must increase from the top zone and lie in (0, 1]")
+        if zone == REMAINDER_ZONE:
+            bad(f"evaluation.zone_targets.{zone}", f"{zone!r} is the zone below the last target (the rest of "
+                "the area); name the zones with targets otherwise, e.g. { high = 0.7, medium = 0.9 }")
+            break
+        if isinstance(share, bool) or not isinstance(share, _NUM) or not prev < share <= 1:
+            bad(f"evaluation.zone_targets.{zone}", f"{zone} = {share!r}: site shares must increase from the "
+                "top zone and lie in (0, 1], e.g. { high = 0.7, medium = 0.9 }")
             break
         prev = share
+    shares = s["evaluation"]["top_area_shares"]
+    numbers = [v for v in shares if isinstance(v, _NUM) and not isinstance(v, bool)]
+    if not shares or len(numbers) < len(shares) or not all(0 < v <= 1 for v in numbers):
+        bad("evaluation.top_area_shares", f"{shares!r}: give area shares in (0, 1], e.g. [0.1, 0.2, 0.33] "
+            "(shares, not percentages)")
+    elif len({round(100.0 * v, 6) for v in numbers}) < len(numbers):
+        bad("evaluation.top_area_shares", f"{shares!r} repeats a share; list each share once")
+    _check_terrain(s["terrain"], s["distances"], bad)
     for name in s["inputs"]:
         if name in s["distances"]:
             bad(f"inputs.{name}", "the same name is used in [distances]")
+
+
+def _check_terrain(t, distances, bad):
+    radii = t["tpi_radii_m"]
+    if not all(isinstance(r, _NUM) and not isinstance(r, bool) and r > 0 for r in radii):
+        bad("terrain.tpi_radii_m", f"{radii!r}: radii are positive distances in metres, e.g. [100, 500]")
+        return
+    from mlsites.errors import InputError
+    from mlsites.terrain._pipeline import TerrainSettings, layer_names
+
+    if not all(isinstance(n, str) for n in t["layers"]):
+        bad("terrain.layers", f"{t['layers']!r}: expected a list of layer names")
+        return
+    try:
+        layer_names(TerrainSettings(layers=tuple(t["layers"]), tpi_radii_m=tuple(radii), vectors=dict(distances)))
+    except InputError as exc:
+        bad("terrain.layers", str(exc))
 
 
 def load_experiment(path) -> Experiment:

@@ -241,7 +241,7 @@ def output_roots(exp) -> tuple[Path, Path]:
 def _check_name(name: str, exp) -> str:
     if not _NAME_RE.match(name or ""):
         raise ConfigError(f"{exp.path}: run name {name!r} cannot be a folder name; use letters, digits, "
-                          "'_', '-' and '.' (not starting with '.'), e.g. --name {exp.name}_2")
+                          f"'_', '-' and '.' (not starting with '.'), e.g. --name {exp.name}_2")
     return name
 
 

@@ -19,6 +19,7 @@ from rasterio.enums import MaskFlags, Resampling
 from rasterio.vrt import WarpedVRT
 from rasterio.windows import Window
 
+from mlsites._validation import gdal_reason
 from mlsites.errors import CRSError, InputError, RasterReadError
 from mlsites.grid._spec import GridSpec
 
@@ -67,7 +68,7 @@ def open_raster(path):
         return rasterio.open(path)
     except rasterio.errors.RasterioIOError as exc:
         raise RasterReadError(
-            f"{path}: not a raster GDAL can read ({str(exc).splitlines()[0]}); "
+            f"{path}: not a raster GDAL can read ({gdal_reason(exc)}); "
             "give a GeoTIFF or another GDAL raster format"
         ) from None
 

@@ -22,7 +22,7 @@ import numpy as np
 
 from mlsites import __version__
 from mlsites._files import staged_folder
-from mlsites._validation import check_cell_pair
+from mlsites._validation import check_cell_pair, gdal_reason
 from mlsites.errors import CRSError, InputError, OutputExistsError, VectorReadError
 from mlsites.grid import AlignedRaster, GridSpec, RasterWriter, bounded_gdal_cache, iter_windows, read_grid
 
@@ -159,10 +159,12 @@ def _check_settings(settings: TerrainSettings, grid: GridSpec, names: list[str],
     if any(n.startswith("tpi_") for n in names):
         cell = None if grid.is_geographic else max(_metric_res(grid))
         for r in settings.tpi_radii_m:
-            too_small = cell is not None and r < cell
-            if not (isinstance(r, (int, float)) and math.isfinite(r)) or too_small:
+            if isinstance(r, bool) or not isinstance(r, (int, float)) or not math.isfinite(r) or r <= 0:
+                raise InputError(f"TPI radius {r!r} m must be a positive number of metres; "
+                                 "give radii of at least one cell, e.g. 100,500")
+            if cell is not None and r < cell:
                 raise InputError(
-                    f"TPI radius {r} m is smaller than one cell ({cell:g} m); "
+                    f"TPI radius {r:g} m is smaller than one cell ({cell:g} m); "
                     "give radii of at least one cell"
                 )
     if settings.landform_lookup_cells < 1:
@@ -336,9 +338,11 @@ def compute_terrain(dem_path, out_dir, settings: TerrainSettings | None = None, 
             f"{', ...' if len(existing) > 3 else ''}); use --overwrite or another --out folder"
         )
     vectors = {n: Path(p) for n, p in settings.vectors.items()}
-    for n, p in list(vectors.items()) + ([("streams", Path(settings.stream_vector))] if settings.stream_vector else []):
+    for what, p in ([(f"vector layer {n!r}", p) for n, p in vectors.items()]
+                    + ([("the stream lines (stream_lines)", Path(settings.stream_vector))]
+                       if settings.stream_vector else [])):
         if not p.exists():
-            raise VectorReadError(f"{p}: vector layer {n!r} not found; check the path")
+            raise VectorReadError(f"{p}: {what} not found; check the path")
 
     local = [n for n in names if not (n in _HYDRO or n.startswith("distance_"))]
     whole = [n for n in names if n not in local]
@@ -525,19 +529,19 @@ def _rasterize_vector(path, grid, name):
     import geopandas as gpd
     from rasterio.features import rasterize
 
-    from mlsites.errors import VectorReadError
-
+    # The user's stream lines travel under an internal name; messages use the option's.
+    what = "the stream lines (stream_lines)" if name == "__streams__" else f"vector layer {name!r}"
     try:
         gdf = gpd.read_file(path)
     except Exception as exc:  # pyogrio raises several types for unreadable files
-        raise VectorReadError(f"{path}: cannot read vector layer {name!r} ({str(exc).splitlines()[0]})") from None
+        raise VectorReadError(f"{path}: cannot read {what} ({gdal_reason(exc)}); give a GeoPackage, "
+                              "GeoJSON or Shapefile") from None
     if gdf.crs is None:
-        raise CRSError(f"{path}: vector layer {name!r} has no CRS; assign one before using it")
+        raise CRSError(f"{path}: {what} has no CRS; assign one before using it (in a GIS, or with "
+                       "ogr2ogr -a_srs EPSG:xxxx)")
     gdf = gdf[~(gdf.geometry.is_empty | gdf.geometry.isna())].to_crs(grid.crs)
     mask = rasterize(((g, 1) for g in gdf.geometry), out_shape=grid.shape, transform=grid.transform,
                      fill=0, all_touched=True, dtype="uint8").astype(bool)
     if not mask.any():
-        raise InputError(
-            f"{path}: no feature of vector layer {name!r} falls on the study grid; check its CRS and extent"
-        )
+        raise InputError(f"{path}: no feature of {what} falls on the study grid; check its CRS and extent")
     return mask

@@ -49,7 +49,7 @@ def test_all_problems_reported_together_with_lines(files):
     with pytest.raises(ConfigError) as err:
         load_experiment(_write(files / "bad.toml", text))
     msg = str(err.value)
-    assert "4 problem(s)" in msg or "5 problem(s)" in msg
+    assert "4 problems" in msg or "5 problems" in msg
     assert "bad.toml:2: [study.dem] file not found" in msg
     assert "bad.toml:3: [study.seed] expected whole number" in msg
     assert "bad.toml:5: [folds.method] 'checkerboard' is not one of" in msg
