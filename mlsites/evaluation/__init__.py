@@ -1,5 +1,6 @@
 """Evaluation: validation measures and potential zones for held-out sites."""
 
+from mlsites.evaluation._checks import FEW_NEW_SITES, binomial_greater_pvalue, new_site_check, wilson_interval
 from mlsites.evaluation._crossval import CrossValResult, cross_validate, write_crossval
 from mlsites.evaluation._metrics import (
     DEFAULT_TOP_AREA_SHARES,
@@ -41,6 +42,10 @@ __all__ = [
     "zone_gains",
     "zone_density_gini",
     "NODATA_ZONE",
+    "wilson_interval",
+    "binomial_greater_pvalue",
+    "new_site_check",
+    "FEW_NEW_SITES",
     "CrossValResult",
     "cross_validate",
     "write_crossval",

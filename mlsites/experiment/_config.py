@@ -2,7 +2,7 @@
 
 An experiment file has sections of our own naming (``[study]``, ``[inputs]``,
 ``[distances]``, ``[terrain]``, ``[sites]``, ``[sampling]``, ``[folds]``,
-``[learners]``, ``[evaluation]``, ``[outputs]``). Paths are relative to the file
+``[learners]``, ``[evaluation]``, ``[explain]``, ``[outputs]``, ``[periods]``). Paths are relative to the file
 that names them. ``extends = "base.toml"`` at the top merges the file over a base
 file, so a study keeps one base and many variants. All problems are collected and
 reported together, each with the file, the key (and line where known) and a hint.
@@ -73,9 +73,35 @@ SCHEMA: dict[str, dict[str, tuple]] = {
         "zone_targets": (dict, {"high": 0.7, "medium": 0.9}, False),
         "top_area_shares": (list, [0.1, 0.2, 0.33], False),
     },
+    # defaults as mlsites.explain.EXPLAIN_DEFAULTS (checked equal in the tests)
+    "explain": {
+        "n_explain": (int, 100, False),
+        "n_background": (int, 50, False),
+        "n_permutations": (int, 10, False),
+        "n_repeats": (int, 5, False),
+        "n_grid": (int, 20, False),
+        "survey_layers": (list, [], False),
+        "correlation_threshold": (_NUM, 0.8, False),
+    },
     "outputs": {
         "runs_dir": (str, "runs", True),
         "models_dir": (str, "models", True),
+    },
+    # Sites with uncertain dates; checked by mlsites.periods._settings.check_periods.
+    "periods": {
+        "block_width_years": (_NUM, 100.0, False),
+        "span": (list, None, False),
+        "origin_year": (_NUM, 0.0, False),
+        "end_inclusive": (bool, False, False),
+        "density": (str, "uniform", False),
+        "ramp_share": (_NUM, 0.25, False),
+        "n_simulations": (int, 1000, False),
+        "bandwidth_m": (_NUM, None, False),
+        "site_squares_m": (_NUM, 1000.0, False),
+        "category_field": (str, None, False),
+        "categories": (dict, {}, False),
+        "windows": (dict, {}, False),
+        "min_probability": (_NUM, 0.1, False),
     },
 }
 #: Sections whose keys are names chosen by the user, each a table of settings.
@@ -423,9 +449,20 @@ def _check_values(s, bad):
     elif len({round(100.0 * v, 6) for v in numbers}) < len(numbers):
         bad("evaluation.top_area_shares", f"{shares!r} repeats a share; list each share once")
     _check_terrain(s["terrain"], s["distances"], bad)
+    ex = s["explain"]
+    for key in ("n_explain", "n_background", "n_permutations", "n_repeats", "n_grid"):
+        if ex[key] < 1:
+            bad(f"explain.{key}", f"must be at least 1, got {ex[key]}")
+    if not 0 < ex["correlation_threshold"] < 1:
+        bad("explain.correlation_threshold", f"must lie in (0, 1), got {ex['correlation_threshold']}")
+    if not all(isinstance(v, str) for v in ex["survey_layers"]):
+        bad("explain.survey_layers", "expected a list of layer names, e.g. [\"distance_roads\"]")
     for name in s["inputs"]:
         if name in s["distances"]:
             bad(f"inputs.{name}", "the same name is used in [distances]")
+    from mlsites.periods._settings import check_periods
+
+    check_periods(s["periods"], bad)
 
 
 def _check_terrain(t, distances, bad):

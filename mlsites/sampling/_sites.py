@@ -37,6 +37,8 @@ CSV_SUFFIXES = {".csv", ".tsv", ".txt"}
 #: Column names tried (case-insensitively) when the CSV coordinate columns are not named.
 X_NAMES = ("x", "easting", "east", "lon", "long", "longitude")
 Y_NAMES = ("y", "northing", "north", "lat", "latitude")
+#: Columns of the kept-site table (besides any ``keep_fields``).
+_OUTPUT_COLUMNS = ("site_id", "start_year", "end_year", "kind", "certainty", "source_row", "geometry")
 #: Columns of the table of dropped records.
 DROPPED_COLUMNS = ["source_row", "site_id", "reason"]
 
@@ -136,7 +138,7 @@ def read_sites(path, grid: GridSpec, *, id_field: str = "site_id", x_field: str 
                y_field: str | None = None, crs=None, start_field: str | None = None,
                end_field: str | None = None, kind_field: str | None = None,
                certainty_field: str | None = None, layer: str | None = None,
-               valid_mask=None) -> SiteRecords:
+               valid_mask=None, keep_fields=()) -> SiteRecords:
     """Read site records, reproject them to the study grid and validate them.
 
     Parameters
@@ -165,6 +167,10 @@ def read_sites(path, grid: GridSpec, *, id_field: str = "site_id", x_field: str 
     valid_mask : bool ndarray of the grid shape, raster path or callable, optional
         Study-area mask (True = usable cell). A callable takes ``(rows, cols)``
         arrays and returns booleans. Point sites on invalid cells are dropped.
+    keep_fields : sequence of str, optional
+        Other columns carried over unchanged under their own names (for example
+        a dating category); each must exist and must not be one of the output
+        columns above.
 
     Returns
     -------
@@ -208,8 +214,13 @@ def read_sites(path, grid: GridSpec, *, id_field: str = "site_id", x_field: str 
     n_read = len(raw)
     if n_read == 0:
         raise InsufficientDataError(f"{source}: contains no site records; give a layer with sites")
-    for field in (start_field, end_field, kind_field, certainty_field):
+    keep_fields = [f for f in dict.fromkeys(keep_fields or ()) if f is not None]
+    for field in (start_field, end_field, kind_field, certainty_field, *keep_fields):
         _require_column(raw, field, source)
+    clash = [f for f in keep_fields if f in _OUTPUT_COLUMNS]
+    if clash:
+        raise InputError(f"{source}: column {clash[0]!r} cannot be carried over, the site table has a column of "
+                         f"that name ({', '.join(_OUTPUT_COLUMNS)}); rename it in the layer")
     reasons = np.full(n_read, None, dtype=object)
 
     def drop(mask, reason):
@@ -282,6 +293,7 @@ def read_sites(path, grid: GridSpec, *, id_field: str = "site_id", x_field: str 
             "kind": _optional_text(raw, kind_field)[keep],
             "certainty": _optional_certainty(raw, certainty_field)[keep],
             "source_row": raw["source_row"].to_numpy()[keep],
+            **{f: raw[f].to_numpy()[keep] for f in keep_fields},
         },
         geometry=gpd.GeoSeries(pgeoms[keep]).values,
         crs=grid.crs,

@@ -122,3 +122,20 @@ def test_missing_extends_target_names_the_file_that_named_it(files):
     _write(files / "v.toml", '# a variant\nextends = "nowhere.toml"\n[study]\nseed = 1\n')
     with pytest.raises(ConfigError, match=r"v\.toml:2: extends = \"nowhere\.toml\": file .*nowhere\.toml not found"):
         load_experiment(files / "v.toml")
+
+
+def test_explain_section_defaults_and_checks(files):
+    from mlsites.explain import EXPLAIN_DEFAULTS
+
+    exp = load_experiment(_write(files / "e.toml", '[study]\ndem = "dem.tif"\n[sites]\npath = "sites.gpkg"\n'))
+    # the schema's defaults are the stage's own
+    assert {k: exp["explain"][k] for k in exp["explain"]} == {k: EXPLAIN_DEFAULTS[k] for k in exp["explain"]}
+    text = ('[study]\ndem = "dem.tif"\n[sites]\npath = "sites.gpkg"\n[explain]\nn_explain = 0\n'
+            'correlation_threshold = 1.5\nsurvey_layers = [3]\n')
+    with pytest.raises(ConfigError) as err:
+        load_experiment(_write(files / "bad_explain.toml", text))
+    msg = str(err.value)
+    assert "3 problems" in msg
+    assert "bad_explain.toml:6: [explain.n_explain] must be at least 1" in msg
+    assert "[explain.correlation_threshold] must lie in (0, 1)" in msg
+    assert "[explain.survey_layers] expected a list of layer names" in msg

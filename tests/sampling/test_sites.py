@@ -311,3 +311,17 @@ def test_valid_mask_as_raster_path(grid, tmp_path):
     rec = _quiet_read(gdf, grid, valid_mask=path)
     assert list(rec.dropped["source_row"]) == [0, 1, 2, 3, 4]
     assert set(rec.dropped["reason"]) == {"on nodata cell"}
+
+
+def test_keep_fields_carry_columns_of_kept_records(grid):
+    x, y = _inside_points(4)
+    x[3] = X0 - 100  # outside: dropped, so its value must not appear
+    gdf = gpd.GeoDataFrame({"site_id": list("abcd"), "phase": ["early", None, "late", "early"]},
+                           geometry=gpd.points_from_xy(x, y), crs="EPSG:3857")
+    rec = _quiet_read(gdf, grid, keep_fields=["phase"])
+    assert rec.sites["site_id"].tolist() == ["a", "b", "c"]
+    assert rec.sites["phase"].iloc[[0, 2]].tolist() == ["early", "late"] and rec.sites["phase"].isna().iloc[1]
+    with pytest.raises(InputError, match="no column 'dating'"):
+        read_sites(gdf, grid, keep_fields=["dating"])
+    with pytest.raises(InputError, match="cannot be carried over"):
+        read_sites(gdf.assign(kind="x"), grid, keep_fields=["kind"])
