@@ -17,7 +17,7 @@ from mlsites.evaluation._metrics import (
 from mlsites.evaluation._zones import (
     NODATA_ZONE,
     assign_zones,
-    indicative_values,
+    relative_site_density,
     zone_density_gini,
     zone_gains,
     zone_table,
@@ -38,7 +38,7 @@ __all__ = [
     "zone_thresholds",
     "assign_zones",
     "zone_table",
-    "indicative_values",
+    "relative_site_density",
     "zone_gains",
     "zone_density_gini",
     "NODATA_ZONE",

@@ -1,9 +1,9 @@
 """Run a whole experiment: inputs, samples, spatial cross-validation, models, tables.
 
 :func:`run_experiment` is the body of ``mlsites run``. Every output is built in a
-staging folder beside its destination and renamed into place only when the run
-succeeded, so a failed run leaves nothing half-written and an existing run is
-never replaced unless asked for (``fresh``). Derived terrain layers and the sample
+staging folder beside its destination (:func:`mlsites._files.staged_folder`) and
+renamed into place only when the run succeeded, so a failed run leaves nothing
+half-written and an existing run is never replaced unless asked for (``fresh``). Derived terrain layers and the sample
 table are cached under ``<runs_dir>/.cache`` by a hash of their inputs and
 settings, so a second run only redoes what changed.
 """
@@ -16,8 +16,6 @@ import functools
 import json
 import os
 import re
-import shutil
-import tempfile
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -25,13 +23,12 @@ from pathlib import Path
 import numpy as np
 
 from mlsites import __version__
-from mlsites._files import staging_dir as _staging_dir
-from mlsites._files import swap_into_place as _swap_into_place
+from mlsites._files import link_or_copy, staged_folder
 from mlsites.errors import ConfigError, OutputExistsError
-from mlsites.experiment._hashing import file_digest, input_hashes, settings_digest
+from mlsites.experiment._hashing import entry_digest, file_digest, input_hashes, settings_digest
 
-__all__ = ["RunResult", "run_experiment", "sample_experiment", "check_input_layers", "output_roots",
-           "samples_key"]
+__all__ = ["RunResult", "run_experiment", "sample_experiment", "check_input_layers", "check_learner_settings",
+           "output_roots", "samples_key"]
 
 #: An integer layer declared continuous with this many distinct codes or fewer (but
 #: more than two, where both kinds give the same model) is taken for a class map.
@@ -97,7 +94,7 @@ def samples_key(exp, hashes=None) -> str:
     """Hash of everything the sample table depends on (settings, file bytes, version)."""
     hashes = input_hashes(exp) if hashes is None else hashes
     return settings_digest({"settings": {s: exp[s] for s in _SAMPLE_SECTIONS},
-                            "files": {k: v["sha256"] for k, v in hashes.items()},
+                            "files": {k: entry_digest(v) for k, v in hashes.items()},
                             "version": __version__})[:16]
 
 
@@ -130,7 +127,8 @@ def check_input_layers(exp, grid, log=None) -> dict:
     Raises
     ------
     ConfigError
-        A layer declared continuous looks categorical, or the reverse.
+        A band the raster does not have, a layer declared continuous that looks
+        categorical, or the reverse.
 
     Notes
     -----
@@ -157,8 +155,9 @@ def check_input_layers(exp, grid, log=None) -> dict:
                 log(f"aligned {name} from {_crs_label(src.crs)}, {abs(src.res[0]):g} x {abs(src.res[1]):g} "
                     f"cells onto the study grid ({how})")
             status[name] = "aligned" if aligned else "on grid"
-            if not 1 <= band <= src.count:
-                continue  # reported with the file name when the layer is read
+            if band > src.count:
+                raise ConfigError(f"{exp.where(f'inputs.{name}.band')}: [inputs.{name}] band = {band}, but "
+                                  f"{path} has {src.count} band(s); give a band from 1 to {src.count}")
             shape = (min(src.height, _INSPECT_CELLS), min(src.width, _INSPECT_CELLS))
             values = src.read(band, out_shape=shape, resampling=Resampling.nearest, masked=True)
             dtype = np.dtype(src.dtypes[band - 1])
@@ -167,7 +166,7 @@ def check_input_layers(exp, grid, log=None) -> dict:
         values = values[np.isfinite(values)]
         codes = np.unique(values)
         class_tags = sorted(k for k in tags if k.startswith("class_"))
-        where = f"{exp.path}: [inputs.{name}]"
+        where = f"{exp.where(f'inputs.{name}.kind')}: [inputs.{name}]"
         if kind == "continuous":
             reason = None
             if class_tags:
@@ -193,28 +192,23 @@ def check_input_layers(exp, grid, log=None) -> dict:
 # ---------------------------------------------------------------- samples
 
 
-def _cached_samples(exp, cache_dir: Path, *, fresh, quiet, log, hashes=None) -> tuple[Path, str, bool]:
-    """Folder of the experiment's sample files in the cache; built unless cached.
+def _cached_samples(exp, cache_dir: Path, grid, *, fresh, quiet, log, hashes):
+    """The experiment's sample set from the cache, built there unless cached.
 
-    ``hashes`` (from :func:`input_hashes`) saves hashing the inputs again when the
-    caller already has them.
+    Returns ``(samples, key, cached)``. A table just built is passed on in memory
+    (it equals its parquet file, see :func:`prepare_samples`); a cached one is
+    read from the cache folder. Either way ``samples.folder`` is the cache folder.
     """
     from mlsites.experiment._samples import prepare_samples
 
-    hashes = input_hashes(exp) if hashes is None else hashes
     key = samples_key(exp, hashes)
     folder = cache_dir / f"samples-{key}"
     if (folder / "samples.parquet").exists() and not fresh:
         log(f"sample table: cached in {folder.name}")
-        return folder, key, True
-    cache_dir.mkdir(parents=True, exist_ok=True)
-    staging = _staging_dir(cache_dir, f".samples-{key}.partial-")
-    try:
-        prepare_samples(exp, staging, cache_dir=cache_dir, fresh=fresh, quiet=quiet, log=log, hashes=hashes)
-        _swap_into_place(staging, folder)
-    finally:
-        shutil.rmtree(staging, ignore_errors=True)
-    return folder, key, False
+        return _load_sample_set(folder), key, True
+    samples = prepare_samples(exp, folder, grid=grid, cache_dir=cache_dir, fresh=True, quiet=quiet, log=log,
+                              hashes=hashes)
+    return samples, key, False
 
 
 def _load_sample_set(folder: Path):
@@ -226,6 +220,11 @@ def _load_sample_set(folder: Path):
     table = pd.read_parquet(folder / "samples.parquet")
     return SampleSet(table=table, features=list(summary["features"]), categorical=list(summary["categorical"]),
                      folder=folder, summary=summary)
+
+
+def _sample_files(folder: Path):
+    """The files of a sample folder (not staging leftovers)."""
+    return sorted(p for p in folder.iterdir() if p.is_file() and not p.name.startswith("."))
 
 
 def output_roots(exp) -> tuple[Path, Path]:
@@ -242,7 +241,7 @@ def output_roots(exp) -> tuple[Path, Path]:
 def _check_name(name: str, exp) -> str:
     if not _NAME_RE.match(name or ""):
         raise ConfigError(f"{exp.path}: run name {name!r} cannot be a folder name; use letters, digits, "
-                          "'_', '-' and '.' (not starting with '.'), e.g. --name {exp.name}_2")
+                          f"'_', '-' and '.' (not starting with '.'), e.g. --name {exp.name}_2")
     return name
 
 
@@ -266,7 +265,7 @@ def sample_experiment(path, *, out_dir=None, fresh=False, quiet=False, log=None)
     Returns
     -------
     SampleSet
-        Read back from ``out_dir``.
+        With ``folder`` = ``out_dir``.
 
     Raises
     ------
@@ -275,8 +274,10 @@ def sample_experiment(path, *, out_dir=None, fresh=False, quiet=False, log=None)
     ConfigError, InputError, InsufficientDataError, ...
         Before anything is written to ``out_dir``.
     """
+    from dataclasses import replace
+
     from mlsites.experiment._config import Experiment, load_experiment
-    from mlsites.experiment._samples import publish_samples
+    from mlsites.experiment._samples import SAMPLE_FILES
     from mlsites.grid import read_grid
 
     log = _Log(log)
@@ -286,39 +287,132 @@ def sample_experiment(path, *, out_dir=None, fresh=False, quiet=False, log=None)
     if (out_dir / "samples.parquet").exists() and not fresh:
         raise OutputExistsError(f"{out_dir}: sample files exist already; use --fresh to replace them "
                                 "or --out for another folder")
-    check_input_layers(exp, read_grid(exp["study"]["dem"]), log)
+    grid = read_grid(exp["study"]["dem"])
+    check_input_layers(exp, grid, log)
+    cache_dir = runs_dir / ".cache"
     with log.stage("samples"):
-        folder, _, _ = _cached_samples(exp, runs_dir / ".cache", fresh=fresh, quiet=quiet, log=log)
-    out_dir.mkdir(parents=True, exist_ok=True)
-    staging = Path(tempfile.mkdtemp(prefix=".samples.partial-", dir=out_dir))
-    try:
-        for p in folder.iterdir():
-            shutil.copy2(p, staging / p.name)
-        publish_samples(staging, out_dir)
-    finally:
-        shutil.rmtree(staging, ignore_errors=True)
-    return _load_sample_set(out_dir)
+        hashes = input_hashes(exp, memo_dir=cache_dir)
+        samples, _, _ = _cached_samples(exp, cache_dir, grid, fresh=fresh, quiet=quiet, log=log, hashes=hashes)
+    with staged_folder(out_dir, files=SAMPLE_FILES) as staging:
+        for p in _sample_files(samples.folder):
+            link_or_copy(p, staging / p.name)
+    return replace(samples, folder=out_dir)
 
 
 # ---------------------------------------------------------------- the run
 
 
+#: Learner settings the run sets itself, and where the user sets them instead.
+_RUN_SET = {"random_state": "[study] seed", "n_jobs": "--jobs", "categorical_features": "the kind of each layer"}
+#: Settings that only scale the work; a dry fit caps them so it stays instant.
+_SIZE_KEYS = ("n_estimators", "max_iter")
+
+
+def _learner_params(exp, name) -> dict:
+    params = dict(exp["learners"]["settings"].get(name, {}))
+    for key, value in params.items():
+        if isinstance(value, list):  # TOML has no tuples (hidden_layer_sizes and the like)
+            params[key] = tuple(value)
+    return params
+
+
+def _valid_settings(name) -> list[str]:
+    """Setting names of a learner: its estimator's parameters and the preset's options."""
+    import inspect
+
+    from mlsites.learners import LEARNERS, make_learner
+
+    model = make_learner(name).named_steps["model"]
+    options = [p.name for p in inspect.signature(LEARNERS[name]).parameters.values()
+               if p.kind is p.KEYWORD_ONLY]
+    return sorted((set(model.get_params(deep=False)) | set(options)) - set(_RUN_SET))
+
+
+def _dry_table(n_categorical):
+    """24 invented rows (half sites) with two numeric layers and the categorical ones."""
+    import pandas as pd
+
+    rng = np.random.default_rng(0)
+    columns = {"a": rng.random(24), "b": rng.random(24)}
+    columns.update({f"c{i}": np.tile([1.0, 2.0, 3.0], 8) for i in range(n_categorical)})
+    return pd.DataFrame(columns), np.r_[np.ones(12, dtype=int), np.zeros(12, dtype=int)]
+
+
+def check_learner_settings(exp) -> None:
+    """Check the names and values of every ``[learners.<name>]`` setting before any work.
+
+    Names are checked against the learner's settings; values by scikit-learn's own
+    parameter validation and then by a dry fit on 24 invented rows (with the
+    iteration and tree counts capped, so it takes a moment), which also catches
+    combinations that are only refused when fitting (a penalty the solver lacks).
+
+    Raises
+    ------
+    ConfigError
+        One line per problem, with file and line, in the words of the experiment
+        file; the valid settings of a learner are listed once.
+    """
+    import warnings
+
+    from mlsites.learners import fit_learner, make_learner
+
+    if not exp["learners"]["use"]:
+        raise ConfigError(f"{exp.where('learners.use')}: [learners] use is empty; name at least one learner")
+    n_categorical = min(1, sum(spec["kind"] == "categorical" for spec in exp["inputs"].values())
+                        + ("landform" in exp["terrain"]["layers"]))
+    problems = []
+    for name in exp["learners"]["use"]:
+        params = _learner_params(exp, name)
+        valid = _valid_settings(name)
+
+        def bad(key, msg, name=name):
+            problems.append(f"{exp.where(f'learners.{name}.{key}')}: [learners.{name}] {msg}")
+
+        unknown = [k for k in params if k not in valid and k not in _RUN_SET]
+        for key in [k for k in params if k in _RUN_SET]:
+            bad(key, f"{key} is set by the run; use {_RUN_SET[key]} instead")
+        for key in unknown:
+            bad(key, f"unknown setting {key!r}")
+        if unknown:
+            problems[-1] += f"; settings of {name} are {', '.join(valid)}"
+        if unknown or any(k in _RUN_SET for k in params):
+            continue
+        learner = make_learner(name, random_state=exp["study"]["seed"],
+                               categorical_features=[f"c{i}" for i in range(n_categorical)], **params)
+        model = learner.named_steps["model"]
+        if hasattr(model, "_parameter_constraints"):
+            try:
+                model._validate_params()
+            except ValueError as exc:  # sklearn's InvalidParameterError is a ValueError
+                m = re.match(r"The '(\w+)' parameter of \w+ must be (.*)\. Got (.*) instead\.", str(exc))
+                if m:
+                    bad(m.group(1), f"{m.group(1)} = {params.get(m.group(1), m.group(3))!r} is not allowed: "
+                                    f"it must be {m.group(2)}")
+                else:
+                    problems.append(f"{exp.where(f'learners.{name}')}: [learners.{name}] {str(exc).splitlines()[0]}")
+                continue
+        current = model.get_params(deep=False)
+        model.set_params(**{k: min(current[k], 2) for k in _SIZE_KEYS if isinstance(current.get(k), int)})
+        X, y = _dry_table(n_categorical)
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                fit_learner(learner, X, y, sample_weight=np.ones(len(y)))
+        except (ValueError, TypeError) as exc:
+            problems.append(f"{exp.where(f'learners.{name}')}: [learners.{name}] these settings cannot be "
+                            f"fitted: {str(exc).splitlines()[0]}")
+    if problems:
+        raise ConfigError("\n".join(problems) if len(problems) == 1 else
+                          f"{len(problems)} problems in the learner settings:\n" + "\n".join(problems))
+
+
 def _learner_factories(exp, categorical, seed):
+    """One learner factory per learner in use (settings checked by :func:`check_learner_settings`)."""
     from mlsites.learners import make_learner
 
-    factories = {}
-    for name in exp["learners"]["use"]:
-        params = dict(exp["learners"]["settings"].get(name, {}))
-        for key, value in params.items():
-            if isinstance(value, list):  # TOML has no tuples (hidden_layer_sizes and the like)
-                params[key] = tuple(value)
-        factory = functools.partial(make_learner, name, random_state=seed,
-                                    categorical_features=tuple(categorical), **params)
-        factory()  # unknown settings fail here, before any work
-        factories[name] = factory
-    if not factories:
-        raise ConfigError(f"{exp.path}: [learners] use is empty; name at least one learner")
-    return factories
+    return {name: functools.partial(make_learner, name, random_state=seed,
+                                    categorical_features=tuple(categorical), **_learner_params(exp, name))
+            for name in exp["learners"]["use"]}
 
 
 def _samples_only(run_dir: Path) -> bool:
@@ -404,9 +498,9 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
     ``roc_curves.png``, ``dropped_records.csv``, ``sampling.json``, ``run.log`` and
     ``samples/`` (the sample table and folds every learner used). After
     cross-validation each learner is refitted on all samples and saved with
-    :func:`save_model`. The sample table is always read back from its parquet
-    file, so a cached and a fresh run feed the learners identical data and give
-    identical metrics files.
+    :func:`save_model`. A table just built is used as it is in memory, which
+    equals its parquet file, so a cached and a fresh run feed the learners
+    identical data and give identical metrics files (tested).
     """
     import pandas as pd
 
@@ -434,19 +528,21 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
     with log.stage("checks"):
         grid = read_grid(exp["study"]["dem"])
         check_input_layers(exp, grid, log)
-    runs_dir.mkdir(parents=True, exist_ok=True)
-    models_root.mkdir(parents=True, exist_ok=True)
-    staging = _staging_dir(runs_dir, f".{name}.partial-")
-    model_staging = _staging_dir(models_root, f".{name}.partial-")
-    try:
+        check_learner_settings(exp)
+    cache_dir = runs_dir / ".cache"
+    with staged_folder(run_dir) as staging, staged_folder(models_dir) as model_staging:
         with log.stage("samples"):
-            hashes = input_hashes(exp)
-            folder, key, cached = _cached_samples(exp, runs_dir / ".cache", fresh=fresh, quiet=quiet, log=log,
-                                                  hashes=hashes)
-            shutil.copytree(folder, staging / "samples")
+            hashes = input_hashes(exp, memo_dir=cache_dir)
+            samples, key, cached = _cached_samples(exp, cache_dir, grid, fresh=fresh, quiet=quiet, log=log,
+                                                   hashes=hashes)
+            # The run keeps the files every learner used; cache files are never
+            # changed in place (every writer renames a new file over the old), so
+            # a hard link is as safe as a copy.
+            (staging / "samples").mkdir()
+            for p in _sample_files(samples.folder):
+                link_or_copy(p, staging / "samples" / p.name)
             for fname in _SAMPLE_REPORTS:
-                shutil.copy2(folder / fname, staging / fname)
-            samples = _load_sample_set(staging / "samples")
+                link_or_copy(samples.folder / fname, staging / fname)
             table, features, categorical = samples.table, samples.features, samples.categorical
             n_sites = int(table.loc[table["label"] == 1, "site_id"].nunique())
             log(f"samples: {int((table['label'] == 1).sum())} site cells of {n_sites} sites, "
@@ -490,7 +586,9 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
                                          "params": exp["learners"]["settings"].get(lname, {})},
                                metrics=rows.loc[lname].to_dict() if lname in rows.index else {},
                                extra={"experiment": exp.name, "run": name,
-                                      "n_samples": int(len(table)), "n_sites": n_sites})
+                                      "n_samples": int(len(table)), "n_sites": n_sites,
+                                      # where the [inputs] features come from, so maps read the same band
+                                      "input_layers": exp["inputs"]})
                     bar.update(1)
                     log(f"model {lname}: fitted on all {len(table)} samples in {time.perf_counter() - t0:.1f} s")
         log(f"run {name}: done in {time.perf_counter() - t_start:.1f} s")
@@ -509,10 +607,5 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
         # A run that appeared meanwhile (another process) is not replaced without fresh.
         _reserve(run_dir, fresh, "output folder", name)
         _reserve(models_dir, fresh, "model folder", name)
-        _swap_into_place(model_staging, models_dir)
-        _swap_into_place(staging, run_dir)
-    finally:
-        shutil.rmtree(staging, ignore_errors=True)
-        shutil.rmtree(model_staging, ignore_errors=True)
     summary = pd.read_csv(run_dir / "metrics_summary.csv")
     return RunResult(name=name, run_dir=run_dir, models_dir=models_dir, summary=summary, manifest=manifest)

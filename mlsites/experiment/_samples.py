@@ -9,10 +9,8 @@ table and folds, so comparisons are fair by construction.
 from __future__ import annotations
 
 import json
-import os
 import re
 import shutil
-import tempfile
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -21,8 +19,9 @@ import numpy as np
 import pandas as pd
 
 from mlsites import __version__
+from mlsites._files import staged_folder
 from mlsites.errors import InputError, InsufficientDataError, OutputExistsError
-from mlsites.experiment._hashing import input_hashes, settings_digest
+from mlsites.experiment._hashing import entry_digest, input_hashes, settings_digest
 
 __all__ = ["SampleSet", "derive_layers", "prepare_samples", "buffered_splitter", "check_redundant_features",
            "FEATURE_EXCLUDED"]
@@ -75,9 +74,9 @@ def derive_layers(exp, cache_dir, *, fresh=False, quiet=False, log=None, hashes=
     )
     hashes = input_hashes(exp) if hashes is None else hashes
     key = {
-        "dem": hashes["study.dem"]["sha256"],
-        "vectors": {n: hashes[f"distances.{n}"]["sha256"] for n in exp["distances"]},
-        "stream_lines": hashes["terrain.stream_lines"]["sha256"] if t["stream_lines"] else None,
+        "dem": entry_digest(hashes["study.dem"]),
+        "vectors": {n: entry_digest(hashes[f"distances.{n}"]) for n in exp["distances"]},
+        "stream_lines": entry_digest(hashes["terrain.stream_lines"]) if t["stream_lines"] else None,
         "settings": settings.__dict__, "version": __version__,
     }
     folder = Path(cache_dir) / f"terrain-{settings_digest(key)[:16]}"
@@ -228,7 +227,7 @@ def _sites_outside_survey(pres, sa, grid, log):
     return pres, outside
 
 
-def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, log=None,
+def prepare_samples(exp, out_dir, *, grid=None, cache_dir=None, fresh=False, quiet=False, log=None,
                     hashes=None) -> SampleSet:
     """Build and write the sample table and folds of an experiment.
 
@@ -237,6 +236,8 @@ def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, l
     exp : Experiment
     out_dir : path-like
         Folder for the sample files; must not hold them already unless ``fresh``.
+    grid : GridSpec, optional
+        The study grid, when the caller has read it from the DEM already.
     cache_dir : path-like, optional
         Where derived terrain layers are cached (default ``out_dir/../cache``).
     fresh : bool
@@ -247,6 +248,7 @@ def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, l
     Returns
     -------
     SampleSet
+        The table in memory, equal to what was written to ``samples.parquet``.
 
     Notes
     -----
@@ -276,7 +278,7 @@ def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, l
     seed = exp["study"]["seed"]
     t0 = time.perf_counter()
     dem = exp["study"]["dem"]
-    grid = read_grid(dem)
+    grid = read_grid(dem) if grid is None else grid
     layers = derive_layers(exp, cache_dir or out_dir.parent / "cache", fresh=fresh, quiet=quiet, log=log,
                            hashes=hashes)
     check_redundant_features(exp, layers, grid, log)
@@ -306,7 +308,8 @@ def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, l
     table = pd.concat([pres.assign(label=1), bg.assign(label=0, site_id="")], ignore_index=True)
     names = list(layers)
     values = extract_values({n: p for n, (p, _) in layers.items()}, table["row"].to_numpy(),
-                            table["col"].to_numpy(), grid, kinds={n: k for n, (_, k) in layers.items()})
+                            table["col"].to_numpy(), grid, kinds={n: k for n, (_, k) in layers.items()},
+                            bands={n: spec["band"] for n, spec in exp["inputs"].items()})
     table = pd.concat([table, values], axis=1)
     dropped_rows = [{"source_row": r, "site_id": i, "reason": why}
                     for r, i, why in zip(records.dropped["source_row"], records.dropped["site_id"],
@@ -358,10 +361,7 @@ def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, l
 def _write_outputs(out_dir: Path, table, blocks, dropped, summary):
     from mlsites.folds import write_folds
 
-    out_dir.mkdir(parents=True, exist_ok=True)
-    staging = Path(tempfile.mkdtemp(prefix=".samples-partial-", dir=out_dir))
-    try:
-        table.to_parquet(staging / "samples.parquet", index=False)
+    with staged_folder(out_dir, files=SAMPLE_FILES) as staging:
         if (table["fold"] >= 0).all():
             write_folds(staging, table["sample_id"], table["fold"], blocks, meta=summary["folds"])
         else:
@@ -370,25 +370,10 @@ def _write_outputs(out_dir: Path, table, blocks, dropped, summary):
             table[["sample_id", "fold"]].to_csv(staging / "folds.csv", index=False)
         dropped.to_csv(staging / "dropped_records.csv", index=False)
         (staging / "sampling.json").write_text(json.dumps(summary, indent=2, default=str))
-        publish_samples(staging, out_dir)
-    finally:
-        shutil.rmtree(staging, ignore_errors=True)
+        table.to_parquet(staging / "samples.parquet", index=False)
 
 
 #: Files a sample folder may hold; blocks and fold metadata only for block folds.
-SAMPLE_FILES = ("samples.parquet", "folds.csv", "blocks.gpkg", "folds_meta.json", "dropped_records.csv",
-                "sampling.json")
-
-
-def publish_samples(staging: Path, out_dir: Path):
-    """Move the sample files of ``staging`` into ``out_dir``, removing stale ones.
-
-    A file an earlier table had but this one has not (blocks of a block method
-    after a switch to random folds) is removed first, so the folder never mixes two
-    tables.
-    """
-    for name in SAMPLE_FILES:
-        if not (staging / name).exists():
-            (out_dir / name).unlink(missing_ok=True)
-    for p in staging.iterdir():
-        os.replace(p, out_dir / p.name)
+#: The table comes last: a folder with ``samples.parquet`` is complete.
+SAMPLE_FILES = ("folds.csv", "blocks.gpkg", "folds_meta.json", "dropped_records.csv", "sampling.json",
+                "samples.parquet")

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import json
 import re
-import shutil
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -12,7 +11,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from mlsites._files import staging_dir, swap_into_place
+from mlsites._files import staged_folder
 from mlsites.errors import InputError, InsufficientDataError, OutputExistsError
 from mlsites.explain._importance import (
     DEFAULT_CORRELATION_THRESHOLD,
@@ -289,9 +288,7 @@ def explain_learners(models, table, *, features, categorical=(), fold_models=Non
 
 
 def _write(result, table, label, features, categorical, out_dir, overwrite):
-    out_dir.parent.mkdir(parents=True, exist_ok=True)
-    staging = staging_dir(out_dir.parent, f".{out_dir.name}.partial-")
-    try:
+    with staged_folder(out_dir) as staging:
         names = result.settings["learners"]
         result.importance.to_csv(staging / "importance.csv", index=False, float_format="%.10g")
         plot_importance(result.importance, staging / "importance.png", names)
@@ -316,6 +313,3 @@ def _write(result, table, label, features, categorical, out_dir, overwrite):
         (staging / "explain.json").write_text(json.dumps(result.settings, indent=2, default=str) + "\n")
         if out_dir.exists() and not overwrite:
             raise OutputExistsError(f"{out_dir} appeared while explaining; choose another folder.")
-        swap_into_place(staging, out_dir)
-    finally:
-        shutil.rmtree(staging, ignore_errors=True)

@@ -7,7 +7,7 @@ Each preset is a :class:`~sklearn.pipeline.Pipeline` whose last step is named
 with :func:`fit_learner`, which routes ``sample_weight`` to every step that uses it.
 """
 
-from numbers import Real
+from numbers import Integral, Real
 from types import MappingProxyType
 
 import numpy as np
@@ -18,6 +18,7 @@ from sklearn.ensemble import HistGradientBoostingClassifier, RandomForestClassif
 from sklearn.linear_model import LogisticRegression
 from sklearn.neural_network import MLPClassifier
 from sklearn.pipeline import Pipeline
+from sklearn.utils._param_validation import Interval
 from sklearn.preprocessing import (
     OneHotEncoder,
     OrdinalEncoder,
@@ -274,6 +275,14 @@ class MeanLossLogisticRegression(ClassifierMixin, BaseEstimator):
     generalized linear models via coordinate descent. Journal of Statistical
     Software 33(1), 1-22. https://doi.org/10.18637/jss.v033.i01
     """
+
+    # scikit-learn's own parameter validation (used by the run's settings check)
+    _parameter_constraints = {
+        "penalty_strength": [Interval(Real, 0, None, closed="left")],
+        "tol": [Interval(Real, 0, None, closed="left")],
+        "max_iter": [Interval(Integral, 1, None, closed="left")],
+        "random_state": ["random_state"],
+    }
 
     def __init__(self, *, penalty_strength=DEFAULT_PENALTY_STRENGTH, tol=1e-4, max_iter=1000,
                  random_state=None):

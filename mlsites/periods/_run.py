@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import json
 import math
-import shutil
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -273,7 +272,7 @@ def run_periods(experiment, *, out_dir=None, fresh=False, show_sites=False, quie
     the null ones.
     """
     from mlsites.experiment._config import Experiment, load_experiment
-    from mlsites._files import staging_dir as _staging_dir, swap_into_place as _swap_into_place
+    from mlsites._files import staged_folder
     from mlsites.experiment._run import output_roots
     from mlsites.grid import read_grid
     from mlsites.periods._plots import plot_block_counts
@@ -334,10 +333,7 @@ def run_periods(experiment, *, out_dir=None, fresh=False, show_sites=False, quie
             log(f"window {r.window} [{r.start:g}, {r.end:g}): {r.n_sites} sites kept (weight {r.weight_sum:.2f}), "
                 f"{r.n_left_out} left out (probability below {windows.min_probability:g} or no overlap)")
 
-    parent = out.parent
-    parent.mkdir(parents=True, exist_ok=True)
-    staging = _staging_dir(parent, f".{out.name}.partial-")
-    try:
+    with staged_folder(out) as staging:
         _write_csv(table, staging / "blocks.csv")
         _write_csv(ranges.table.drop(columns=["row"]), staging / "site_dates.csv")
         coo = weights.tocoo()
@@ -378,8 +374,5 @@ def run_periods(experiment, *, out_dir=None, fresh=False, show_sites=False, quie
         }
         (staging / "periods.json").write_text(json.dumps(summary, indent=2, default=str) + "\n")
         reserve()  # a folder that appeared meanwhile is not replaced without fresh
-        _swap_into_place(staging, out)
-    finally:
-        shutil.rmtree(staging, ignore_errors=True)
     log(f"periods: wrote {out} in {time.perf_counter() - t0:.1f} s")
     return PeriodsResult(out_dir=out, table=table, ranges=ranges, blocks=blocks, windows=windows, summary=summary)

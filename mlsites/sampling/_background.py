@@ -585,11 +585,10 @@ class _Survey:
         if mode == "weighted":
             overlap &= effort > 0
         if not overlap.any():
-            sb, gb = shapely.total_bounds(polys), grid.bounds
+            sb = shapely.total_bounds(polys)
             raise InputError(
-                f"{source}: the survey polygons (x {sb[0]:.6g}..{sb[2]:.6g}, y {sb[1]:.6g}.."
-                f"{sb[3]:.6g}) do not overlap the study grid (x {gb[0]:.6g}..{gb[2]:.6g}, y "
-                f"{gb[1]:.6g}..{gb[3]:.6g})"
+                f"{source}: the survey polygons ({grid.extent_text(sb)}) do not overlap the study grid "
+                f"({grid.extent_text()})"
                 + ("" if mode == "inside" else " with an effort > 0")
                 + "; check the survey layer and its CRS"
             )
@@ -651,8 +650,9 @@ def _read_survey(survey):
         try:
             return gpd.read_file(path), path.name
         except Exception as exc:
-            first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-            raise VectorReadError(f"{path}: not a vector layer GDAL can read ({first})") from None
+            from mlsites._validation import gdal_reason
+
+            raise VectorReadError(f"{path}: not a vector layer GDAL can read ({gdal_reason(exc)})") from None
     raise InputError(f"survey: expected a GeoDataFrame or a path, got {type(survey).__name__}")
 
 

@@ -107,9 +107,7 @@ def test_bad_input_is_one_line_exit_2_and_nothing_written(tmp_path, case, fragme
     assert res.exit_code == 2, res.output
     assert fragment in res.stderr and "Traceback" not in res.stderr
     errors = [ln for ln in res.stderr.splitlines() if not ln.startswith("mlsites: warning")]
-    if case == "narrow_blocks":  # an experiment-file error: a count, then one line per problem
-        assert len(errors) == 2 and errors[0] == "mlsites: error: 1 problem(s) in the experiment:"
-    else:
-        assert len(errors) == 1 and errors[0].startswith("mlsites: error: "), res.stderr
+    # one problem, one line (an experiment-file problem too)
+    assert len(errors) == 1 and errors[0].startswith("mlsites: error: "), res.stderr
     assert not (tmp_path / "out").exists()
     assert not [p for p in tmp_path.iterdir() if p.name.startswith(".")]

@@ -184,7 +184,7 @@ def test_failures_leave_nothing_behind(tmp_path, data, case):
         match = r"(?i)fold \d+ has no (presences|site)"
     else:
         exp = write_experiment(tmp_path, tmp_path, use=["logistic"], extra="[learners.logistic]\nn_trees = 5\n")
-        match = "unknown parameter"
+        match = r"\[learners.logistic\] unknown setting 'n_trees'; settings of logistic are .*\bC\b"
     for name in ("dem.tif", "soil.tif", "streams.gpkg", "sites.gpkg"):
         target = tmp_path / name
         if not target.exists():
@@ -322,3 +322,93 @@ def test_buffered_leave_one_site_out_runs_end_to_end(tmp_path, data):
     # log says so with the number of cells
     assert (per_site["landscape"] == "within_buffer").all()
     assert "background within buffer_m = 150 m" in (result.run_dir / "run.log").read_text()
+
+
+def test_editing_a_shapefile_dbf_invalidates_the_sample_cache(tmp_path, data):
+    # issue 7: the .dbf holds the site ids; a cache keyed on the .shp alone reused a
+    # stale table. Only the .dbf is replaced here (by one written elsewhere).
+    import geopandas as gpd
+
+    sites = gpd.read_file(data / "sites.gpkg")
+    sites.to_file(tmp_path / "sites.shp")
+    renamed = sites.assign(site_id=["R" + s[1:] for s in sites["site_id"]])
+    (tmp_path / "other").mkdir()
+    renamed.to_file(tmp_path / "other" / "sites.shp")
+    exp = write_experiment(tmp_path, data, sites=str(tmp_path / "sites.shp"), use=["fuzzy"])
+    first = sample_experiment(exp, out_dir=tmp_path / "a", quiet=True)
+    (tmp_path / "sites.dbf").write_bytes((tmp_path / "other" / "sites.dbf").read_bytes())
+    lines = []
+    second = sample_experiment(exp, out_dir=tmp_path / "b", quiet=True, log=lines.append)
+    assert not any(line.startswith("sample table: cached") for line in lines)
+    ids = lambda s: set(s.table.loc[s.table["label"] == 1, "site_id"])  # noqa: E731
+    assert ids(second) == {"R" + i[1:] for i in ids(first)}
+    # unchanged inputs: the cache is used
+    lines.clear()
+    sample_experiment(exp, out_dir=tmp_path / "c", quiet=True, log=lines.append)
+    assert any(line.startswith("sample table: cached") for line in lines)
+
+
+def _two_band(data, path):
+    """soil.tif's codes as band 1 and a continuous field (DEM heights / 7) as band 2."""
+    with rasterio.open(data / "soil.tif") as src:
+        profile, codes = src.profile, src.read(1)
+    with rasterio.open(data / "dem.tif") as src:
+        heights = src.read(1)
+    profile.update(count=2, dtype="float32", nodata=-9999.0)
+    with rasterio.open(path, "w", **profile) as dst:
+        dst.write(codes.astype("float32"), 1)
+        dst.write((heights / 7.0).astype("float32"), 2)
+    return path
+
+
+def test_band_asked_for_is_the_band_read(tmp_path, data):
+    # issue 7: band = 2 was read from band 1. Reference: rasterio's own read of band 2.
+    layers = _two_band(data, tmp_path / "two.tif")
+    write_experiment(tmp_path, data, use=["fuzzy"])
+    (tmp_path / "b2.toml").write_text(f'extends = "tiny.toml"\n[study]\nname = "b2"\n[inputs]\n'
+                                      f'soil = {{ path = "{layers}", kind = "continuous", band = 2 }}\n')
+    samples = sample_experiment(tmp_path / "b2.toml", quiet=True)
+    with rasterio.open(layers) as src:
+        band2 = src.read(2)
+    t = samples.table
+    np.testing.assert_array_equal(t["soil"].to_numpy(), band2[t["row"], t["col"]].astype(np.float64))
+
+
+def test_band_that_does_not_exist_is_refused_before_any_work(tmp_path, data):
+    from click.testing import CliRunner
+
+    from mlsites.cli.main import cli
+
+    write_experiment(tmp_path, data, use=["fuzzy"])
+    (tmp_path / "b5.toml").write_text(f'extends = "tiny.toml"\n[study]\nname = "b5"\n[inputs]\n'
+                                      f'soil = {{ path = "{data / "soil.tif"}", kind = "categorical", band = 5 }}\n')
+    result = CliRunner().invoke(cli, ["run", str(tmp_path / "b5.toml"), "--quiet"])
+    assert result.exit_code == 2, result.output
+    lines = result.stderr.strip().splitlines()
+    assert len(lines) == 1 and "Traceback" not in result.output
+    assert f"b5.toml:5: [inputs.soil] band = 5, but {data / 'soil.tif'} has 1 band(s)" in lines[0]
+    assert not (tmp_path / "runs").exists()  # before any work: not even the cache
+
+
+@pytest.mark.parametrize("extra, fragment", [
+    # the preset's own constraint, checked by scikit-learn's parameter validation
+    ("[learners.logistic]\npenalty_strength = -1\n",
+     "[learners.logistic] penalty_strength = -1 is not allowed: it must be a float in the range [0.0, inf)"),
+    ("[learners.logistic]\nrandom_state = 1\n", "random_state is set by the run; use [study] seed"),
+    ("[learners.logistic]\nsplines = 1\n", "[learners.logistic] these settings cannot be fitted: splines"),
+])
+def test_invalid_learner_settings_are_one_line_before_any_work(tmp_path, data, extra, fragment):
+    from click.testing import CliRunner
+
+    from mlsites.cli.main import cli
+
+    exp = write_experiment(tmp_path, data, use=["logistic", "fuzzy"], extra=extra)
+    key = extra.splitlines()[1].split(" =")[0]
+    line = exp.read_text().splitlines().index(extra.splitlines()[1]) + 1
+    result = CliRunner().invoke(cli, ["run", str(exp), "--quiet"])
+    assert result.exit_code == 2, result.output
+    lines = result.stderr.strip().splitlines()
+    assert len(lines) == 1 and "Traceback" not in result.output, result.stderr
+    where = f"{exp}:{line}" if key in ("penalty_strength", "random_state") else f"{exp}:"
+    assert lines[0].startswith(f"mlsites: error: {where}") and fragment in lines[0], lines[0]
+    assert not (tmp_path / "runs").exists()

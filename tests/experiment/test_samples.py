@@ -46,6 +46,9 @@ def test_table_weights_folds_and_reproducibility(study, tmp_path):
     prepare_samples(exp, tmp_path / "b", cache_dir=tmp_path / "cache2", quiet=True)
     # Brief: same seed gives byte-identical tables.
     assert (tmp_path / "a" / "samples.parquet").read_bytes() == (tmp_path / "b" / "samples.parquet").read_bytes()
+    # The table passed on in memory is exactly what a cached run reads back (values,
+    # dtypes, index), so fresh and cached runs feed the learners the same data.
+    pd.testing.assert_frame_equal(a.table, pd.read_parquet(tmp_path / "a" / "samples.parquet"), check_exact=True)
     t = a.table
     pres, bg = t[t["label"] == 1], t[t["label"] == 0]
     # METHODS.md §7: every site's cells sum to the same total (each site counts once);
