@@ -184,7 +184,7 @@ def test_failures_leave_nothing_behind(tmp_path, data, case):
         match = r"(?i)fold \d+ has no (presences|site)"
     else:
         exp = write_experiment(tmp_path, tmp_path, use=["logistic"], extra="[learners.logistic]\nn_trees = 5\n")
-        match = r"\[learners.logistic\] unknown setting 'n_trees'; settings of logistic are .*\bC\b"
+        match = r"\[learners.logistic\] unknown setting 'n_trees'; settings of logistic are .*\bpenalty_strength\b"
     for name in ("dem.tif", "soil.tif", "streams.gpkg", "sites.gpkg"):
         target = tmp_path / name
         if not target.exists():
