@@ -9,10 +9,17 @@ so the result does not depend on the number of threads or on the block size.
 
 import numpy as np
 
-from mlsites._numba import pjit, prange
+from mlsites._numba import ngjit, pjit, prange
 
 #: Rows per parallel block: the encoded block (a few hundred kB) stays in the core's cache.
 BLOCK_ROWS = 2048
+
+
+@ngjit
+def _block_rows(b, n):
+    """First and one-past-last row of block ``b`` of ``n`` rows."""
+    lo = b * BLOCK_ROWS
+    return lo, min(n, lo + BLOCK_ROWS)
 
 
 @pjit
@@ -25,10 +32,8 @@ def _forest_kernel(Z, feature, threshold, children, value, roots, out):
     next node (a lone walk is bound by memory latency, not by arithmetic).
     """
     n = Z.shape[0]
-    n_blocks = (n + BLOCK_ROWS - 1) // BLOCK_ROWS
-    for b in prange(n_blocks):
-        lo = b * BLOCK_ROWS
-        hi = min(n, lo + BLOCK_ROWS)
+    for b in prange((n + BLOCK_ROWS - 1) // BLOCK_ROWS):
+        lo, hi = _block_rows(b, n)
         acc = np.zeros(hi - lo)
         for t in range(roots.size):
             r = roots[t]
@@ -69,10 +74,8 @@ def _boosting_kernel(Z, feature, threshold, left, right, is_leaf, missing_left, 
     value is <= the float64 threshold.
     """
     n = Z.shape[0]
-    n_blocks = (n + BLOCK_ROWS - 1) // BLOCK_ROWS
-    for b in prange(n_blocks):
-        lo = b * BLOCK_ROWS
-        hi = min(n, lo + BLOCK_ROWS)
+    for b in prange((n + BLOCK_ROWS - 1) // BLOCK_ROWS):
+        lo, hi = _block_rows(b, n)
         acc = np.zeros(hi - lo)
         for i in range(hi - lo):
             acc[i] += baseline  # 0 + baseline, as scikit-learn starts from zeros

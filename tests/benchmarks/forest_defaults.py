@@ -30,9 +30,11 @@ import pandas as pd
 
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
+sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 from mlsites.evaluation import cross_validate  # noqa: E402
 from mlsites.learners import fast_predictor, fit_learner, make_learner  # noqa: E402
+from virtual_study import virtual_study  # noqa: E402
 
 #: Settings compared (parameters of RandomForestClassifier over the preset's own).
 #: With scikit-learn >= 1.9 each tree draws its bootstrap sample with probability
@@ -59,65 +61,6 @@ SETTINGS = {
 BASELINE = "today: 500 trees, fully grown"
 MAP_CELLS = 250_000
 
-EXPERIMENT = """
-[study]
-name = "forest_{seed}"
-dem = "{data}/dem.tif"
-seed = {seed}
-[inputs]
-soil = {{ path = "{data}/soil.tif", kind = "categorical" }}
-[terrain]
-layers = ["slope", "northness", "eastness", "tpi", "ruggedness", "profile_curvature",
-          "plan_curvature", "landform", "stream_distance", "height_above_drainage"]
-tpi_radii_m = [100.0, 300.0]
-stream_lines = "{data}/streams.gpkg"
-[sites]
-path = "{data}/sites.gpkg"
-[sampling]
-site_buffer_m = 20.0
-background_count = 5000
-exclusion_m = 50.0
-survey_areas = "{data}/survey.gpkg"
-survey_mode = "inside"
-[folds]
-method = "square_blocks"
-n_splits = 5
-block_size_m = 1000.0
-[learners]
-use = ["random_forest"]
-[outputs]
-runs_dir = "{work}/runs"
-models_dir = "{work}/models"
-"""
-
-
-def _study(seed, work):
-    """Sample table and raster feature frame of one fictional study."""
-    import rasterio
-
-    from mlsites.experiment._demo import write_demo_data
-    from mlsites.experiment._run import sample_experiment
-
-    data = work / f"data_{seed}"
-    write_demo_data(data, shape=(600, 600), cellsize=10.0, n_sites=360, random_state=seed)
-    toml = work / f"study_{seed}.toml"
-    toml.write_text(EXPERIMENT.format(seed=seed, data=data.as_posix(), work=work.as_posix()))
-    samples = sample_experiment(toml, out_dir=work / f"samples_{seed}", quiet=True)
-    terrain = next((work / "runs" / ".cache").glob("terrain-*"))
-    columns = {}
-    for name in samples.features:
-        path = data / "soil.tif" if name == "soil" else terrain / f"{name}.tif"
-        with rasterio.open(path) as src:
-            columns[name] = src.read(1, masked=True).astype(float).filled(np.nan).ravel()
-    cells = pd.DataFrame(columns)
-    cells = cells[~cells.isna().any(axis=1)].reset_index(drop=True)
-    for p in (work / "runs" / ".cache").glob("terrain-*"):  # the next study derives its own
-        import shutil
-
-        shutil.rmtree(p)
-    return samples, cells
-
-
 def _seconds_per_million(fn, n):
     best = np.inf
     for _ in range(2):
@@ -140,7 +83,7 @@ def main():
     with tempfile.TemporaryDirectory(prefix="forest_defaults_") as tmp:
         work = Path(tmp)
         for seed in seeds:
-            samples, cells = _study(seed, work)
+            samples, cells = virtual_study(seed, work)
             table, feats, cat = samples.table, samples.features, samples.categorical
             cells = cells.sample(n=min(MAP_CELLS, len(cells)), random_state=0).sort_index()
 
