@@ -80,18 +80,19 @@ class _TreePredictor(SitePredictor):
         Z = self._encode(X)
         if Z.shape[0] == 0:
             return np.zeros(0)
-        out = np.empty(Z.shape[0])
-        if n_threads is None:
-            self._run(Z, out)
-            return out
         import numba
 
-        n_threads = _check_threads(n_threads, numba.config.NUMBA_NUM_THREADS)
+        out = np.empty(Z.shape[0])
         previous = numba.get_num_threads()
-        numba.set_num_threads(n_threads)
+        if n_threads is not None:
+            numba.set_num_threads(_check_threads(n_threads, numba.config.NUMBA_NUM_THREADS))
+        # blocks handed out one at a time, so a thread slowed by other work on the
+        # machine does not hold up the others (the result is the same either way)
+        chunk = numba.set_parallel_chunksize(1)
         try:
             self._run(Z, out)
         finally:
+            numba.set_parallel_chunksize(chunk)
             numba.set_num_threads(previous)
         return out
 

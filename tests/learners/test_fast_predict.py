@@ -36,7 +36,8 @@ def _table(n, seed, *, n_num=4, categories=(4, 3)):
 
 def _fitted(name, X, y, categorical, **params):
     model = make_learner(name, random_state=0, categorical_features=categorical, **params)
-    w = np.where(y == 1, 1.0 / max(y.sum(), 1), 1.0 / max((1 - y).sum(), 1))
+    # the sampling stage's scale: each site 1, background together as much as the sites
+    w = np.where(y == 1, 1.0, y.sum() / max((1 - y).sum(), 1))
     return fit_learner(model, X, y, w)
 
 
