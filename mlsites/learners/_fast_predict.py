@@ -179,9 +179,12 @@ def fast_predictor(estimator):
     :class:`~sklearn.ensemble.ExtraTreesClassifier`, and a binary
     :class:`~sklearn.ensemble.HistGradientBoostingClassifier`, alone or as the
     last step of a Pipeline whose other step is a :class:`LayerEncoder` (the
-    presets "random_forest" and "gradient_boosting"). Other learners, forests with
-    more than two classes or outputs, and boosting fitted with its own categorical
-    preprocessing of DataFrames take the generic path.
+    presets "random_forest" and "gradient_boosting"). A boosting model's own
+    category encoder (scikit-learn re-encodes categorical columns inside the
+    model) is applied first: directly for numeric categories behind a
+    LayerEncoder, else by its own ``transform``. Other learners, other pipelines,
+    and forests or boosting with more than two classes or outputs take the
+    generic path.
 
     *Exactness.* Forest features are cast to float32 as scikit-learn does, and
     each float64 threshold t is replaced by the largest float32 not above it, which
@@ -190,10 +193,12 @@ def fast_predictor(estimator):
     Boosting follows scikit-learn's float64 decisions, missing-value sides and
     categorical bitsets, sums the leaves in tree order from the baseline and
     applies the logistic function, so probabilities agree to rounding (a few
-    1e-16) on every row. Rows with NaN in a forest's features go to
-    scikit-learn's own ``predict_proba``. One documented difference: a boosting
-    category value of 256 or more, which scikit-learn never produces from its
-    encoders and handles by an undefined C cast, is treated as unseen.
+    1e-16) on every row. A batch with NaN among a forest's encoded features
+    goes to scikit-learn's own ``predict_proba`` (which routes NaN per node, or
+    refuses it for a forest fitted without missing values). One documented
+    difference: a boosting category code of 256 or more, which scikit-learn's
+    encoders never produce and its prediction handles by an undefined C cast, is
+    treated as unseen.
 
     *Encoding.* For a LayerEncoder with one-hot or ordinal numeric categories
     and no scaling or splines (the tree presets), the encoded matrix is built
