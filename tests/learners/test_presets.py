@@ -244,7 +244,7 @@ def test_weights_reach_the_final_estimator(name, table):
             frame, slice(None), OneHotEncoder(handle_unknown="ignore", sparse_output=False)
         )
         if name == "random_forest":
-            ref = RandomForestClassifier(n_estimators=15, random_state=0)
+            ref = RandomForestClassifier(n_estimators=15, max_samples=1.0, random_state=0)  # the preset
             design = layout
         else:
             scaler = StandardScaler().fit(num, sample_weight=w)
