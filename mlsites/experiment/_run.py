@@ -406,13 +406,23 @@ def check_learner_settings(exp) -> None:
                           f"{len(problems)} problems in the learner settings:\n" + "\n".join(problems))
 
 
-def _learner_factories(exp, categorical, seed):
-    """One learner factory per learner in use (settings checked by :func:`check_learner_settings`)."""
-    from mlsites.learners import make_learner
+def _learner_factories(exp, categorical, seed, table):
+    """One learner factory per learner in use (settings checked by :func:`check_learner_settings`).
 
-    return {name: functools.partial(make_learner, name, random_state=seed,
-                                    categorical_features=tuple(categorical), **_learner_params(exp, name))
-            for name in exp["learners"]["use"]}
+    The random forest draws about two rows per site for each tree unless the
+    experiment sets ``max_samples`` (:func:`mlsites.learners.balanced_draws_share`).
+    """
+    from mlsites.learners import balanced_draws_share, make_learner
+
+    factories = {}
+    for name in exp["learners"]["use"]:
+        params = _learner_params(exp, name)
+        if name == "random_forest" and "max_samples" not in params:
+            n_sites = int(table.loc[table["label"] == 1, "site_id"].nunique())
+            params["max_samples"] = balanced_draws_share(table["weight"].to_numpy(), n_sites)
+        factories[name] = functools.partial(make_learner, name, random_state=seed,
+                                            categorical_features=tuple(categorical), **params)
+    return factories
 
 
 def _samples_only(run_dir: Path) -> bool:
@@ -547,7 +557,7 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
             n_sites = int(table.loc[table["label"] == 1, "site_id"].nunique())
             log(f"samples: {int((table['label'] == 1).sum())} site cells of {n_sites} sites, "
                 f"{int((table['label'] == 0).sum())} background cells, {len(features)} features")
-        factories = _learner_factories(exp, categorical, seed)
+        factories = _learner_factories(exp, categorical, seed, table)
         ev = exp["evaluation"]
         splitter = None
         if exp["folds"]["method"] == "buffered_leave_one_out":

@@ -19,6 +19,7 @@ from mlsites.learners._presets import (
     LEARNERS,
     LayerEncoder,
     MeanLossLogisticRegression,
+    balanced_draws_share,
     fit_learner,
     make_learner,
 )
@@ -29,6 +30,7 @@ __all__ = [
     "category_memberships",
     "LayerEncoder",
     "MeanLossLogisticRegression",
+    "balanced_draws_share",
     "SitePredictor",
     "fast_predictor",
     "fit_learner",

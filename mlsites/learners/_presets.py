@@ -406,11 +406,42 @@ def _finish(encoder, model, params, name):
     return Pipeline(steps)
 
 
+def balanced_draws_share(weight, n_sites):
+    """``max_samples`` that gives each forest tree about two draws per site.
+
+    scikit-learn (>= 1.9) draws a tree's rows with probability proportional to
+    ``sample_weight`` and counts a fractional ``max_samples`` in units of the weight
+    total. With balanced weights (sites and background each half the total), a share
+    of ``2 * n_sites / sum(weight)`` therefore gives every tree about one draw per
+    site and as many background draws: the down-sampled forest of Valavi et al.
+    (2021). The share carries over to a fold's training rows, whose weights total
+    less in proportion to their sites. The sample table's weights average 1, so
+    ``max_samples=1.0`` would draw as many rows as the table holds instead.
+
+    Parameters
+    ----------
+    weight : array-like of float
+        Sample weights of the whole table (sites and background).
+    n_sites : int
+        Number of sites in the table.
+
+    Returns
+    -------
+    float
+        In (0, 1].
+    """
+    total = float(np.sum(weight))
+    if not np.isfinite(total) or total <= 0 or n_sites < 1:
+        raise InputError(f"weights total {total!r} for {n_sites} site(s); expected a positive total and sites.")
+    return min(1.0, 2.0 * n_sites / total)
+
+
 def _random_forest(*, random_state, categorical_features, n_jobs, **params):
     """Down-sampled random forest of 300 trees on one-hot encoded categorical layers."""
-    # Each tree draws (by weight) as many cells as the weights total, i.e. twice the
-    # number of sites with the sampling stage's weights: half sites, half background
-    # (tests/benchmarks/forest_defaults.py holds the evidence).
+    # max_samples=1.0 draws (by weight) as many rows as the weights total: twice the
+    # number of sites when the weights sum to one per site and as much for background.
+    # Runs pass balanced_draws_share instead, since the sample table's weights average
+    # 1 (tests/benchmarks/forest_defaults.py holds the evidence for down-sampling).
     model = RandomForestClassifier(n_estimators=300, max_samples=1.0, n_jobs=n_jobs, random_state=random_state)
     encoder = LayerEncoder(categorical_features, encoding="onehot")
     return _finish(encoder, model, params, "random_forest")

@@ -22,7 +22,7 @@ from mlsites.experiment._demo import write_demo_data
 from mlsites.experiment._models import load_model, save_model
 from mlsites.experiment._run import check_input_layers, sample_experiment
 from mlsites.grid import read_grid
-from mlsites.learners import fit_learner, make_learner
+from mlsites.learners import balanced_draws_share, fit_learner, make_learner
 
 METRIC_FILES = ("metrics_by_fold.csv", "metrics_summary.csv", "zones.csv", "curves.csv")
 RUN_FILES = METRIC_FILES + ("capture_curves.png", "roc_curves.png", "manifest.json", "run.log",
@@ -129,12 +129,31 @@ def test_model_cards_describe_the_refitted_models(tmp_path, data):
         row = summary.set_index("learner").loc[learner]
         assert card["cross_validated"]["auc_mean"] == pytest.approx(row["auc_mean"], rel=1e-9)  # csv uses %.10g
         # reference: the same preset fitted here through the public learner API
+        n_sites = samples.loc[samples["label"] == 1, "site_id"].nunique()
+        forest = {"n_estimators": 15, "max_samples": balanced_draws_share(samples["weight"], n_sites)}
         reference = fit_learner(
             make_learner(learner, random_state=3, categorical_features=["soil"],
-                         **({"n_estimators": 15} if learner == "random_forest" else {})),
+                         **(forest if learner == "random_forest" else {})),
             samples[card["features"]], samples["label"], sample_weight=samples["weight"])
         X = samples[card["features"]]
         np.testing.assert_array_equal(saved.estimator.predict_proba(X), reference.predict_proba(X))
+
+
+def test_run_forest_trees_draw_two_rows_per_site(tmp_path, data):
+    # Valavi et al. (2021): each tree of a down-sampled forest sees about as many
+    # presences as there are sites and as many background points. The sample table's
+    # weights average 1, so the run must not leave max_samples at 1.0 (which would
+    # draw as many rows as the table holds: the forest then memorises sites again).
+    exp = write_experiment(tmp_path, data, use=["random_forest"])
+    result = run_experiment(exp, quiet=True, n_jobs=1)
+    samples = pd.read_parquet(result.run_dir / "samples" / "samples.parquet")
+    n_sites = samples.loc[samples["label"] == 1, "site_id"].nunique()
+    forest = load_model(result.models_dir / "random_forest.card.json").estimator.named_steps["model"]
+    label = samples["label"].to_numpy()
+    for drawn in forest.estimators_samples_:
+        assert abs(drawn.size - 2 * n_sites) <= 1
+        # site draws ~ Binomial(2 n_sites, 1/2): within 4 sd of n_sites
+        assert abs(int(label[drawn].sum()) - n_sites) <= 4 * np.sqrt(n_sites / 2)
 
 
 def test_existing_run_is_not_clobbered_and_fresh_replaces_it(tmp_path, data):
