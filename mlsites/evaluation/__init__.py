@@ -1,5 +1,12 @@
 """Evaluation: validation measures and potential zones for held-out sites."""
 
+from mlsites.evaluation._calibration import (
+    area_ranks,
+    calibrate_zone_areas,
+    cut_for_area_share,
+    nearest_tie_cut,
+    wilson_interval,
+)
 from mlsites.evaluation._crossval import CrossValResult, cross_validate, write_crossval
 from mlsites.evaluation._metrics import (
     DEFAULT_TOP_AREA_SHARES,
@@ -41,6 +48,11 @@ __all__ = [
     "zone_gains",
     "zone_density_gini",
     "NODATA_ZONE",
+    "area_ranks",
+    "calibrate_zone_areas",
+    "cut_for_area_share",
+    "nearest_tie_cut",
+    "wilson_interval",
     "CrossValResult",
     "cross_validate",
     "write_crossval",
