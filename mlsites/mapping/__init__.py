@@ -1,0 +1,20 @@
+"""Maps of saved models: potential, zone and spread rasters, window by window, at any size."""
+
+from mlsites.mapping._features import FeatureLayer, FeatureSource, resolve_features
+from mlsites.mapping._map import EXTRA_LAYERS, MAP_FILES, ZONE_OUTSIDE, MapResult, map_model, zone_colours
+from mlsites.mapping._predict import CHUNK_ROWS, predict_cells, spread_of
+
+__all__ = [
+    "map_model",
+    "MapResult",
+    "MAP_FILES",
+    "EXTRA_LAYERS",
+    "ZONE_OUTSIDE",
+    "zone_colours",
+    "FeatureLayer",
+    "FeatureSource",
+    "resolve_features",
+    "CHUNK_ROWS",
+    "predict_cells",
+    "spread_of",
+]
