@@ -21,7 +21,7 @@ from mlsites.experiment._models import load_fold_models, load_model, save_model
 from mlsites.mapping import CHUNK_ROWS, ZONE_OUTSIDE, map_model, zone_colours
 from mlsites.mapping._predict import single_threaded
 
-from tests.mapping.conftest import LEARNERS
+from tests.mapping.study import LEARNERS
 
 
 def card_of(run, learner):

@@ -1,13 +1,12 @@
-"""A tiny fictional study run once for the mapping tests: five learners, saved models.
+"""A tiny fictional study for the mapping tests: five learners, saved models.
 
 The study is the demo builder's invented landscape with virtual sites (120 x 120
 cells of 10 m), with small learner settings so the run takes seconds; the run
-itself maps nothing (``[maps] learners = "none"``), the tests map its cards.
+itself maps nothing (``[maps] learners = "none"``), the tests map its cards. The
+fixtures ``study_data`` and ``study_run`` (tests/conftest.py) build it once per session.
 """
 
 import json
-
-import pytest
 
 from mlsites.experiment import run_experiment
 from mlsites.experiment._demo import write_demo_data
@@ -64,15 +63,10 @@ def write_study_experiment(folder, data, *, maps="none", use=LEARNERS, name="map
     return path
 
 
-@pytest.fixture(scope="session")
-def study_data(tmp_path_factory):
-    folder = tmp_path_factory.mktemp("map_study_data")
+def build_study_data(folder):
     write_demo_data(folder, shape=(120, 120), cellsize=10.0, n_sites=200, random_state=4)
     return folder
 
 
-@pytest.fixture(scope="session")
-def study_run(tmp_path_factory, study_data):
-    folder = tmp_path_factory.mktemp("map_study")
-    exp = write_study_experiment(folder, study_data)
-    return run_experiment(exp, quiet=True, n_jobs=2)
+def run_study(folder, data):
+    return run_experiment(write_study_experiment(folder, data), quiet=True, n_jobs=2)
