@@ -14,6 +14,7 @@ from __future__ import annotations
 import collections
 import contextlib
 import json
+import pickle
 import shutil
 import threading
 import time
@@ -107,7 +108,7 @@ class _Context:
     """Everything a window task needs, small enough to send with each window."""
 
     key: str
-    card_path: str
+    models_file: str
     grid: dict
     layers: tuple
     features: tuple
@@ -123,11 +124,11 @@ _STATE_LOCK = threading.Lock()
 
 class _Loaded:
     def __init__(self, ctx: _Context):
-        from mlsites.experiment._models import load_fold_models, load_model
-
-        saved = load_model(ctx.card_path)
-        self.model = single_threaded(saved.estimator)
-        self.fold_models = [single_threaded(m) for m in load_fold_models(saved)] if ctx.with_spread else []
+        # Written by this map's parent from the model files it checked against their
+        # card (skops, hashes); a pickle loads in a fraction of the time skops needs,
+        # once per worker.
+        with open(ctx.models_file, "rb") as f:
+            self.model, self.fold_models = pickle.load(f)
         self.reader = LayerReader(ctx.layers, GridSpec.from_dict(ctx.grid))
 
     def close(self):
@@ -351,7 +352,7 @@ def map_model(card, out_dir, *, dem=None, n_jobs=1, scheduler=None, fresh=False,
     window size, number of jobs and scheduler.
     """
     from mlsites.experiment._hashing import file_digest
-    from mlsites.experiment._models import load_model
+    from mlsites.experiment._models import load_fold_models, load_model
     from mlsites.experiment._run import _staging_dir, _swap_into_place
 
     log = log or (lambda m: None)
@@ -373,15 +374,19 @@ def map_model(card, out_dir, *, dem=None, n_jobs=1, scheduler=None, fresh=False,
     with_spread = len(card_data.get("fold_models") or []) >= 2
     if not with_spread:
         log(f"{card_path.name} lists fewer than two fold models: no spread layer")
+    fold_models = load_fold_models(saved) if with_spread else []
     card_sha = file_digest(card_path)
-    ctx = _Context(key=f"{card_sha}:{json.dumps(grid.to_dict())}:{[l.path for l in source.layers]}",
-                   card_path=str(card_path), grid=grid.to_dict(), layers=source.layers,
-                   features=tuple(card_data["features"]), with_spread=with_spread, extras=tuple(EXTRA_LAYERS),
-                   chunk_rows=CHUNK_ROWS)
     windows = list(iter_windows(grid, block_rows=int(block_rows), block_cols=int(block_cols)))
     out_dir.parent.mkdir(parents=True, exist_ok=True)
     staging = _staging_dir(out_dir.parent, f".{out_dir.name}.partial-")
     try:
+        models_file = staging / ".models.pickle"
+        with open(models_file, "wb") as f:
+            pickle.dump((single_threaded(saved.estimator), [single_threaded(m) for m in fold_models]), f,
+                        protocol=pickle.HIGHEST_PROTOCOL)
+        ctx = _Context(key=f"{models_file}:{card_sha}", models_file=str(models_file), grid=grid.to_dict(),
+                       layers=source.layers, features=tuple(card_data["features"]), with_spread=with_spread,
+                       extras=tuple(EXTRA_LAYERS), chunk_rows=CHUNK_ROWS)
         with bounded_gdal_cache():
             t0 = time.perf_counter()
             counts, missing, n_valid = _predict_pass(ctx, windows, staging, grid, n_jobs, scheduler, quiet,
@@ -405,6 +410,7 @@ def map_model(card, out_dir, *, dem=None, n_jobs=1, scheduler=None, fresh=False,
                 log(f"{card_data['name']}: zone {z['name']} covers the whole mapped area: on held-out sites the "
                     f"model reaches {100 * z['target']:.0f} % of sites only with all of it (no zone below)")
         (staging / "map.json").write_text(json.dumps(summary, indent=2) + "\n")
+        models_file.unlink()
         _swap_into_place(staging, out_dir)
     finally:
         shutil.rmtree(staging, ignore_errors=True)
