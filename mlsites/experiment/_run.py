@@ -432,7 +432,10 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
     ``roc_curves.png``, ``dropped_records.csv``, ``sampling.json``, ``run.log`` and
     ``samples/`` (the sample table and folds every learner used). After
     cross-validation each learner is refitted on all samples and saved with
-    :func:`save_model`. The sample table is always read back from its parquet
+    :func:`save_model`, its fold models beside it and, in the card, what a map
+    needs to rebuild its features and its calibrated zones; the learners chosen by
+    ``[maps] learners`` are then mapped into ``maps/LEARNER/``
+    (:func:`mlsites.mapping.map_model`). The sample table is always read back from its parquet
     file, so a cached and a fresh run feed the learners identical data and give
     identical metrics files.
     """
