@@ -219,6 +219,8 @@ def _window_task(ctx: _Context, window: tuple) -> dict:
 def _results(ctx, windows, n_jobs, scheduler):
     """Window results in window order, from this process, joblib workers or dask."""
     tasks = [(int(w.core.col_off), int(w.core.row_off), int(w.core.width), int(w.core.height)) for w in windows]
+    # no more workers than windows; one window is mapped here (starting workers costs seconds)
+    n_jobs = min(n_jobs, len(tasks))
     if scheduler is not None:
         yield from _dask_results(ctx, tasks, n_jobs, scheduler)
     elif n_jobs == 1:

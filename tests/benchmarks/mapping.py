@@ -24,17 +24,15 @@ command and its worker processes (target < 2048 MB).
 import argparse
 import json
 import os
-import subprocess
 import sys
 import tempfile
-import threading
 import time
 from pathlib import Path
 
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from demo import _tree_rss_mb  # noqa: E402  (same folder)
+from demo import run_watched  # noqa: E402  (same folder)
 
 LEARNERS = ("random_forest", "logistic", "mlp", "gradient_boosting", "fuzzy")
 LAYERS = ("slope", "northness", "eastness", "tpi", "ruggedness")
@@ -114,23 +112,12 @@ def _map_cli_seconds_and_peak(card, out, jobs):
     """Wall time and peak summed RSS of ``mlsites map`` in a child process."""
     cmd = [sys.executable, "-m", "mlsites.cli", "map", str(card), "--out", str(out), "--jobs", str(jobs),
            "--quiet", "--fresh"]
-    peak = [0.0]
-    t0 = time.perf_counter()
-    proc = subprocess.Popen(cmd, stderr=subprocess.PIPE, text=True)
-
-    def watch():
-        while proc.poll() is None:
-            peak[0] = max(peak[0], _tree_rss_mb(proc.pid))
-            time.sleep(0.2)
-
-    watcher = threading.Thread(target=watch, daemon=True)
-    watcher.start()
-    _, stderr = proc.communicate()
-    seconds = time.perf_counter() - t0
-    watcher.join()
-    if proc.returncode != 0:
+    root = str(Path(__file__).resolve().parents[2])  # this checkout, not an installed copy
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join(filter(None, [root, os.environ.get("PYTHONPATH")])))
+    returncode, stderr, seconds, peak = run_watched(cmd, env, interval=0.2)
+    if returncode != 0:
         raise RuntimeError(f"map failed: {stderr[-2000:]}")
-    return seconds, peak[0]
+    return seconds, peak
 
 
 def _big(work, size, jobs):
