@@ -1,6 +1,12 @@
 """Evaluation: validation measures and potential zones for held-out sites."""
 
 from mlsites.evaluation._checks import FEW_NEW_SITES, binomial_greater_pvalue, new_site_check, wilson_interval
+from mlsites.evaluation._calibration import (
+    area_ranks,
+    calibrate_zone_areas,
+    cut_for_area_share,
+    nearest_tie_cut,
+)
 from mlsites.evaluation._crossval import CrossValResult, cross_validate, write_crossval
 from mlsites.evaluation._metrics import (
     DEFAULT_TOP_AREA_SHARES,
@@ -46,6 +52,10 @@ __all__ = [
     "binomial_greater_pvalue",
     "new_site_check",
     "FEW_NEW_SITES",
+    "area_ranks",
+    "calibrate_zone_areas",
+    "cut_for_area_share",
+    "nearest_tie_cut",
     "CrossValResult",
     "cross_validate",
     "write_crossval",

@@ -104,6 +104,9 @@ SCHEMA: dict[str, dict[str, tuple]] = {
         "windows": (dict, {}, False),
         "min_probability": (_NUM, 0.1, False),
     },
+    "maps": {
+        "learners": ((str, list), "best_and_baseline", False),
+    },
 }
 #: Sections whose keys are names chosen by the user, each a table of settings.
 _NAMED_SECTIONS = {
@@ -120,6 +123,8 @@ FOLD_METHODS = ("square_blocks", "hexagon_blocks", "buffered_leave_one_out", "en
 SURVEY_MODES = ("inside", "weighted")
 #: Name of the zone below the last zone target (mlsites.evaluation's remainder).
 REMAINDER_ZONE = "low"
+#: Which learners a run maps: the best and the fuzzy baseline, the best only, all, none.
+MAP_CHOICES = ("best_and_baseline", "best", "all", "none")
 LAYER_KINDS = ("continuous", "categorical")
 
 
@@ -259,6 +264,8 @@ def _absolutise(data: dict, folder: Path, text: str, path: Path):
 
 
 def _type_name(t):
+    if isinstance(t, tuple) and t is not _NUM:
+        return " or ".join(_type_name(x) for x in t)
     if t is _NUM:
         return "number"
     return {str: "text", int: "whole number", bool: "true/false", list: "list", dict: "table"}.get(t, str(t))
@@ -461,6 +468,13 @@ def _check_values(s, bad):
         bad("explain.correlation_threshold", f"must lie in (0, 1), got {ex['correlation_threshold']}")
     if not all(isinstance(v, str) for v in ex["survey_layers"]):
         bad("explain.survey_layers", "expected a list of layer names, e.g. [\"distance_roads\"]")
+    maps = s["maps"]["learners"]
+    if isinstance(maps, str) and maps not in MAP_CHOICES:
+        bad("maps.learners", f"{maps!r} is not one of {', '.join(MAP_CHOICES)} (or a list of learner names)")
+    elif isinstance(maps, list):
+        unused = [m for m in maps if m not in s["learners"]["use"]]
+        if unused or not all(isinstance(m, str) for m in maps):
+            bad("maps.learners", f"{unused or maps} not among the learners used ({', '.join(s['learners']['use'])})")
     for name in s["inputs"]:
         if name in s["distances"]:
             bad(f"inputs.{name}", "the same name is used in [distances]")

@@ -468,6 +468,16 @@ def _progress(total, desc, quiet):
     return tqdm(total=total, desc=desc, unit="fit", disable=quiet, leave=False)
 
 
+def _map_card_entries(exp, result, features, hashes, cache_dir, quiet, log) -> dict:
+    """Per learner, the model-card entries a map needs: feature recipe and calibrated zones."""
+    from mlsites.experiment._recipe import feature_recipe, zone_calibration
+    from mlsites.experiment._samples import derive_layers
+
+    layers = derive_layers(exp, cache_dir, quiet=quiet, hashes=hashes)
+    recipe = feature_recipe(exp, layers, features, hashes, cache_folder=cache_dir)
+    return {n: {**recipe, "zones": zone_calibration(result.zones, n)} for n in result.summary["learner"]}
+
+
 def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_jobs=None) -> RunResult:
     """Run an experiment file end to end: samples, cross-validation, models, tables.
 
@@ -508,9 +518,12 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
     ``roc_curves.png``, ``dropped_records.csv``, ``sampling.json``, ``run.log`` and
     ``samples/`` (the sample table and folds every learner used). After
     cross-validation each learner is refitted on all samples and saved with
-    :func:`save_model`. A table just built is used as it is in memory, which
-    equals its parquet file, so a cached and a fresh run feed the learners
-    identical data and give identical metrics files (tested).
+    :func:`save_model`, its fold models beside it and, in the card, what a map
+    needs to rebuild its features and its calibrated zones; the learners chosen by
+    ``[maps] learners`` are then mapped into ``maps/LEARNER/``
+    (:func:`mlsites.mapping.map_model`). A table just built is used as it is in
+    memory, which equals its parquet file, so a cached and a fresh run feed the
+    learners identical data and give identical metrics files (tested).
     """
     import pandas as pd
 
@@ -582,6 +595,8 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
             best = result.summary.iloc[0]
             log(f"best learner by mean fold AUC: {best['learner']} ({best['auc_mean']:.3f})")
         with log.stage("models"), _convergence_notes(log, "refit"):
+            # what a map needs to rebuild the features (layer files, settings, zones)
+            card_extras = _map_card_entries(exp, result, features, hashes, runs_dir / ".cache", quiet, log)
             data_hash = file_digest(staging / "samples" / "samples.parquet")
             X, y, w = table[features], table["label"].to_numpy(), table["weight"].to_numpy()
             rows = result.summary.set_index("learner")
@@ -596,11 +611,15 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
                                          "params": exp["learners"]["settings"].get(lname, {})},
                                metrics=rows.loc[lname].to_dict() if lname in rows.index else {},
                                extra={"experiment": exp.name, "run": name,
-                                      "n_samples": int(len(table)), "n_sites": n_sites,
-                                      # where the [inputs] features come from, so maps read the same band
-                                      "input_layers": exp["inputs"]})
+                                      "n_samples": int(len(table)), "n_sites": n_sites, **card_extras[lname]},
+                               fold_estimators=result.fold_models.get(lname, ()))
                     bar.update(1)
                     log(f"model {lname}: fitted on all {len(table)} samples in {time.perf_counter() - t0:.1f} s")
+        with log.stage("maps"):
+            from mlsites.mapping._run_maps import map_run_models
+
+            maps = map_run_models(exp["maps"]["learners"], list(result.summary["learner"]), model_staging,
+                                  staging / "maps", final_model_dir=models_dir, n_jobs=n_jobs, quiet=quiet, log=log)
         log(f"run {name}: done in {time.perf_counter() - t_start:.1f} s")
         manifest = {
             "run": name, "experiment": exp.name, "experiment_file": str(exp.path),
@@ -611,6 +630,7 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
             "started_utc": started.isoformat(timespec="seconds"),
             "finished_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
             "run_dir": str(run_dir), "models_dir": str(models_dir), "learners": list(factories),
+            "maps": sorted(maps),
         }
         (staging / "manifest.json").write_text(json.dumps(manifest, indent=2, default=str) + "\n")
         (staging / "run.log").write_text("\n".join(log.lines) + "\n")

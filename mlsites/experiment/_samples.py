@@ -23,8 +23,8 @@ from mlsites._files import staged_folder
 from mlsites.errors import InputError, InsufficientDataError, OutputExistsError
 from mlsites.experiment._hashing import entry_digest, input_hashes, settings_digest
 
-__all__ = ["SampleSet", "derive_layers", "prepare_samples", "buffered_splitter", "check_redundant_features",
-           "FEATURE_EXCLUDED"]
+__all__ = ["SampleSet", "derive_layers", "cached_terrain", "terrain_features", "terrain_settings",
+           "prepare_samples", "buffered_splitter", "check_redundant_features", "FEATURE_EXCLUDED"]
 
 #: Terrain outputs that are not used as model features (codes, circular or redundant).
 FEATURE_EXCLUDED = {"aspect", "flow_direction", "filled_dem", "streams", "flow_accumulation"}
@@ -52,18 +52,12 @@ class SampleSet:
     summary: dict
 
 
-def derive_layers(exp, cache_dir, *, fresh=False, quiet=False, log=None, hashes=None) -> dict:
-    """Terrain and distance layers of an experiment, computed once and cached.
-
-    Returns a dict layer name -> (path, kind). The cache folder's name is a hash of
-    the DEM bytes, the vector files and the terrain settings, so a second run reuses
-    it and any change recomputes it; ``fresh`` recomputes regardless. ``hashes``
-    (from :func:`input_hashes`) saves hashing the inputs again.
-    """
-    from mlsites.terrain import TerrainSettings, compute_terrain
+def terrain_settings(exp):
+    """The :class:`~mlsites.terrain.TerrainSettings` of an experiment's ``[terrain]`` and ``[distances]``."""
+    from mlsites.terrain import TerrainSettings
 
     t = exp["terrain"]
-    settings = TerrainSettings(
+    return TerrainSettings(
         layers=tuple(t["layers"]),
         tpi_radii_m=tuple(float(r) for r in t["tpi_radii_m"]),
         landform_lookup_cells=t["landform_lookup_cells"],
@@ -72,23 +66,69 @@ def derive_layers(exp, cache_dir, *, fresh=False, quiet=False, log=None, hashes=
         vectors=dict(exp["distances"]),
         stream_vector=t["stream_lines"],
     )
-    hashes = input_hashes(exp) if hashes is None else hashes
+
+
+def cached_terrain(dem, settings, cache_dir, *, dem_sha256, vector_sha256, stream_sha256=None, fresh=False,
+                   quiet=False, log=None) -> tuple[Path, dict]:
+    """Terrain and distance layers of one DEM, computed once into a cache folder.
+
+    Parameters
+    ----------
+    dem : path-like
+    settings : TerrainSettings
+    cache_dir : path-like
+        Parent of the cache folders (``terrain-<key>``).
+    dem_sha256, vector_sha256, stream_sha256 : str, dict of str to str, str or None
+        Hashes of the DEM, of each distance vector layer and of the stream lines;
+        with the settings and the version they make the folder's key.
+    fresh : bool
+        Recompute even when cached.
+
+    Returns
+    -------
+    (Path, dict)
+        The folder and its ``terrain.json`` summary.
+    """
+    from mlsites.terrain import compute_terrain
+
     key = {
-        "dem": entry_digest(hashes["study.dem"]),
-        "vectors": {n: entry_digest(hashes[f"distances.{n}"]) for n in exp["distances"]},
-        "stream_lines": entry_digest(hashes["terrain.stream_lines"]) if t["stream_lines"] else None,
+        "dem": dem_sha256,
+        "vectors": {n: vector_sha256[n] for n in settings.vectors},
+        "stream_lines": stream_sha256 if settings.stream_vector else None,
         "settings": settings.__dict__, "version": __version__,
     }
     folder = Path(cache_dir) / f"terrain-{settings_digest(key)[:16]}"
     if fresh and folder.exists():
         shutil.rmtree(folder)
     if not (folder / "terrain.json").exists():
-        compute_terrain(exp["study"]["dem"], folder, settings, overwrite=True, quiet=quiet, log=log)
+        compute_terrain(dem, folder, settings, overwrite=True, quiet=quiet, log=log)
     elif log:
         log(f"terrain layers: cached in {folder.name}")
-    summary = json.loads((folder / "terrain.json").read_text())
-    layers = {n: (folder / info["file"], "categorical" if n == "landform" else "continuous")
-              for n, info in summary["layers"].items() if _is_feature(n, summary["layers"])}
+    return folder, json.loads((folder / "terrain.json").read_text())
+
+
+def terrain_features(folder, summary) -> dict:
+    """Feature layers of a terrain cache folder: name -> (path, kind), excluded layers left out."""
+    return {n: (Path(folder) / info["file"], "categorical" if n == "landform" else "continuous")
+            for n, info in summary["layers"].items() if _is_feature(n, summary["layers"])}
+
+
+def derive_layers(exp, cache_dir, *, fresh=False, quiet=False, log=None, hashes=None) -> dict:
+    """Terrain and distance layers of an experiment, computed once and cached.
+
+    Returns a dict layer name -> (path, kind). The cache folder's name is a hash of
+    the DEM bytes, the vector files and the terrain settings, so a second run reuses
+    it and any change recomputes it; ``fresh`` recomputes regardless. ``hashes``
+    (from :func:`input_hashes`) saves hashing the inputs again.
+    """
+    settings = terrain_settings(exp)
+    hashes = input_hashes(exp) if hashes is None else hashes
+    folder, summary = cached_terrain(
+        exp["study"]["dem"], settings, cache_dir, dem_sha256=entry_digest(hashes["study.dem"]),
+        vector_sha256={n: entry_digest(hashes[f"distances.{n}"]) for n in exp["distances"]},
+        stream_sha256=entry_digest(hashes["terrain.stream_lines"]) if settings.stream_vector else None,
+        fresh=fresh, quiet=quiet, log=log)
+    layers = terrain_features(folder, summary)
     for n, spec in exp["inputs"].items():
         layers[n] = (Path(spec["path"]), spec["kind"])
     return layers

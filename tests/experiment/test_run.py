@@ -156,6 +156,49 @@ def test_run_forest_trees_draw_two_rows_per_site(tmp_path, data):
         assert abs(int(label[drawn].sum()) - n_sites) <= 4 * np.sqrt(n_sites / 2)
 
 
+def test_run_maps_the_best_learner_and_the_baseline_with_complete_cards(tmp_path, data):
+    exp = write_experiment(tmp_path, data, use=["mlp", "logistic", "fuzzy"])
+    result = run_experiment(exp, quiet=True, n_jobs=1)
+    best = result.summary["learner"].iloc[0]
+    expected = sorted({best, "fuzzy"})
+    assert sorted(p.name for p in (result.run_dir / "maps").iterdir()) == expected
+    assert result.manifest["maps"] == expected
+    for learner in expected:
+        folder = result.run_dir / "maps" / learner
+        assert sorted(p.name for p in folder.iterdir()) == ["map.json", "potential.tif", "spread.tif", "zones.tif"]
+        summary = json.loads((folder / "map.json").read_text())
+        # map.json names the card where it lives after the run, with its hash (hashlib reference)
+        card_path = result.models_dir / f"{learner}.card.json"
+        assert summary["model_card"]["path"] == str(card_path)
+        assert summary["model_card"]["sha256"] == hashlib.sha256(card_path.read_bytes()).hexdigest()
+    zones = pd.read_csv(result.run_dir / "zones.csv")
+    for learner in ("mlp", "logistic", "fuzzy"):
+        card = json.loads((result.models_dir / f"{learner}.card.json").read_text())
+        # every feature has a layer entry whose hash is the file's (hashlib reference)
+        assert [e["name"] for e in card["feature_layers"]] == card["features"]
+        for e in card["feature_layers"]:
+            assert hashlib.sha256(Path(e["path"]).read_bytes()).hexdigest() == e["sha256"], e["name"]
+        assert card["terrain"]["dem"]["sha256"] == hashlib.sha256((data / "dem.tif").read_bytes()).hexdigest()
+        assert card["terrain"]["settings"]["layers"] == ["slope", "northness", "stream_distance"]
+        assert card["terrain"]["stream_lines"]["path"] == str(data / "streams.gpkg")
+        # three folds, three fold model files, each vouched for by its hash
+        assert [f["file"] for f in card["fold_models"]] == [f"{learner}.fold{k}.skops" for k in range(3)]
+        for f in card["fold_models"]:
+            assert hashlib.sha256((result.models_dir / f["file"]).read_bytes()).hexdigest() == f["sha256"]
+        rows = zones[zones["learner"] == learner]
+        assert [z["name"] for z in card["zones"]["zones"]] == ["high", "medium"]
+        assert [z["area_share"] for z in card["zones"]["zones"]] == pytest.approx(rows["area_share"].iloc[:2].tolist())
+
+
+def test_maps_option_is_checked(tmp_path, data):
+    exp = write_experiment(tmp_path, data, use=["logistic"], extra='[maps]\nlearners = "every"\n')
+    with pytest.raises(ConfigError, match=r"\[maps.learners\] 'every' is not one of best_and_baseline"):
+        load_experiment(exp)
+    exp = write_experiment(tmp_path, data, use=["logistic"], extra='[maps]\nlearners = ["mlp"]\n', name="b.toml")
+    with pytest.raises(ConfigError, match=r"\['mlp'\] not among the learners used"):
+        load_experiment(exp)
+
+
 def test_existing_run_is_not_clobbered_and_fresh_replaces_it(tmp_path, data):
     exp = write_experiment(tmp_path, data, use=["logistic", "fuzzy"])
     result = run_experiment(exp, quiet=True, n_jobs=1)
