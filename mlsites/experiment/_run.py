@@ -611,7 +611,10 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
                                          "params": exp["learners"]["settings"].get(lname, {})},
                                metrics=rows.loc[lname].to_dict() if lname in rows.index else {},
                                extra={"experiment": exp.name, "run": name,
-                                      "n_samples": int(len(table)), "n_sites": n_sites, **card_extras[lname]},
+                                      "n_samples": int(len(table)), "n_sites": n_sites, **card_extras[lname],
+                                      # the table the area of applicability of a map is fitted on
+                                      "training_table": {"path": str(run_dir / "samples" / "samples.parquet"),
+                                                         "sha256": data_hash}},
                                fold_estimators=result.fold_models.get(lname, ()))
                     bar.update(1)
                     log(f"model {lname}: fitted on all {len(table)} samples in {time.perf_counter() - t0:.1f} s")
@@ -619,7 +622,9 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
             from mlsites.mapping._run_maps import map_run_models
 
             maps = map_run_models(exp["maps"]["learners"], list(result.summary["learner"]), model_staging,
-                                  staging / "maps", final_model_dir=models_dir, n_jobs=n_jobs, quiet=quiet, log=log)
+                                  staging / "maps", final_model_dir=models_dir,
+                                  training_table=staging / "samples" / "samples.parquet", n_jobs=n_jobs,
+                                  quiet=quiet, log=log)
         log(f"run {name}: done in {time.perf_counter() - t_start:.1f} s")
         manifest = {
             "run": name, "experiment": exp.name, "experiment_file": str(exp.path),

@@ -21,6 +21,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 from rasterio.windows import Window
 
 from mlsites import __version__
@@ -29,6 +30,7 @@ from mlsites.errors import CRSError, InputError, OutputExistsError
 from mlsites.evaluation import NODATA_ZONE, assign_zones
 from mlsites.grid import AlignedRaster, GridSpec, RasterWriter, bounded_gdal_cache, iter_windows
 from mlsites.mapping._features import LayerReader, resolve_features
+from mlsites.learners import fast_predictor
 from mlsites.mapping._predict import CHUNK_ROWS, predict_cells, single_threaded, spread_of
 from mlsites.mapping._quantile import coarse_counts, fine_counts, finish_cuts, plan_cuts
 
@@ -40,9 +42,15 @@ ZONE_OUTSIDE = 255
 #: Rasters a map folder may hold, besides ``map.json``.
 MAP_FILES = ("potential.tif", "zones.tif", "spread.tif", "dissimilarity.tif", "applicable.tif")
 #: Layers computed per window from the same feature matrix as the potential, other
-#: than the potential and spread: name -> (dtype, nodata, description). Empty until
-#: the area of applicability is wired in (see :func:`_extra_layers`).
-EXTRA_LAYERS: dict = {}
+#: than the potential and spread: name -> (dtype, nodata, description). Written when
+#: the model card names its training table (see :func:`_fit_applicability`).
+EXTRA_LAYERS: dict = {
+    "dissimilarity": (np.float32, None, "dissimilarity index (Meyer & Pebesma 2021): distance to the nearest "
+                      "training sample in standardised, weighted layer space over the mean distance between "
+                      "training samples"),
+    "applicable": (np.uint8, 255, "area of applicability: 1 where the dissimilarity index is at most the "
+                   "threshold from the cross-validated training samples, 0 outside, 255 nodata"),
+}
 #: Default window: 256 rows (one tile row) by 2048 columns (eight tiles).
 BLOCK_ROWS, BLOCK_COLS = 256, 2048
 
@@ -128,7 +136,7 @@ class _Loaded:
         # card (skops, hashes); a pickle loads in a fraction of the time skops needs,
         # once per worker.
         with open(ctx.models_file, "rb") as f:
-            self.model, self.fold_models = pickle.load(f)
+            self.model, self.fold_models, self.applicability = pickle.load(f)
         self.reader = LayerReader(ctx.layers, GridSpec.from_dict(ctx.grid))
 
     def close(self):
@@ -156,15 +164,18 @@ def _release_state():
         state[1].close()
 
 
-def _extra_layers(loaded: _Loaded, X: np.ndarray) -> dict:
+def _extra_layers(loaded: _Loaded, ctx: _Context, X: np.ndarray) -> dict:
     """Layers computed from the window's feature matrix besides potential and spread.
 
-    Seam for the area of applicability: return ``{"dissimilarity": ...,
-    "applicable": ...}`` (one value per row of ``X``) and list them in
-    :data:`EXTRA_LAYERS`; the parent writes them as ``NAME.tif`` and the zone pass
-    marks cells with ``applicable == 0`` as :data:`ZONE_OUTSIDE`.
+    The dissimilarity index and the area-of-applicability mask (one value per row of
+    ``X``); the parent writes them as ``NAME.tif`` and the zone pass marks cells with
+    ``applicable == 0`` as :data:`ZONE_OUTSIDE`.
     """
-    return {}
+    model = loaded.applicability
+    if model is None:
+        return {}
+    di = model.dissimilarity(pd.DataFrame(X, columns=list(ctx.features), copy=False))
+    return {"dissimilarity": di, "applicable": (di <= model.threshold_).astype(np.uint8)}
 
 
 def _score_window(loaded, ctx, X, valid, potential, spread, extras):
@@ -175,7 +186,7 @@ def _score_window(loaded, ctx, X, valid, potential, spread, extras):
     if spread is not None:
         preds = [predict_cells(m, X, ctx.features, chunk_rows=ctx.chunk_rows) for m in loaded.fold_models]
         spread[valid] = spread_of(preds).astype(np.float32)
-    extras.update(_extra_layers(loaded, X))
+    extras.update(_extra_layers(loaded, ctx, X))
 
 
 def _window_task(ctx: _Context, window: tuple) -> dict:
@@ -269,6 +280,48 @@ def _dask_results(ctx, tasks, n_jobs, scheduler):
 # ------------------------------------------------------------------ the map
 
 
+def _fit_applicability(card, card_path, log, table_path=None):
+    """The area-of-applicability model of a card's training table, or None without one.
+
+    Fitted at map time from the sample table the model was trained on (its hash is
+    checked against the card), its fold column and the card's layer weights
+    (``applicability_weights``: the held-out permutation importances once the
+    explanations ran, equal weights otherwise).
+    """
+    from mlsites.experiment._hashing import file_digest
+    from mlsites.mapping._applicability import ApplicabilityModel
+
+    entry = card.get("training_table")
+    if not entry:
+        log(f"{card_path.name} names no training table: no dissimilarity or applicability layers")
+        return None
+    path = Path(table_path or entry["path"])
+    if not path.is_file():
+        raise InputError(f"{card_path}: training table {path} not found; it is needed for the area of "
+                         "applicability (re-run the experiment, or keep the run folder with the models)")
+    if file_digest(path) != entry.get("sha256"):
+        raise InputError(f"{path}: SHA-256 differs from training_table in {card_path.name}; the table changed "
+                         "after the model was fitted (re-run the experiment)")
+    table = pd.read_parquet(path, columns=list(card["features"]) + ["fold", "weight"])
+    weights = card.get("applicability_weights")
+    model = ApplicabilityModel().fit(table[list(card["features"])], table["fold"].to_numpy(),
+                                     weights=weights, sample_weight=table["weight"].to_numpy(),
+                                     categorical=tuple(card.get("categorical") or ()))
+    log(f"{card['name']}: area of applicability from {model.n_reference_} training samples, threshold "
+        f"{model.threshold_:.3g} ({'importance' if weights else 'equal'} weights)")
+    return model
+
+
+def _applicability_summary(model, card):
+    if model is None:
+        return None
+    return {"method": "dissimilarity index, Meyer & Pebesma (2021)", "threshold": float(model.threshold_),
+            "mean_distance": float(model.mean_distance_), "n_reference": int(model.n_reference_),
+            "weights": "held-out permutation importance" if card.get("applicability_weights") else "equal",
+            "layer_weights": {str(k): float(v) for k, v in zip(card["features"], np.ravel(model.weights_))}
+            if np.size(model.weights_) == len(card["features"]) else None}
+
+
 def _check_zones(card, card_path):
     zones = card.get("zones")
     if not zones or not zones.get("zones"):
@@ -284,7 +337,8 @@ def _progress(total, desc, quiet):
 
 
 def map_model(card, out_dir, *, dem=None, n_jobs=1, scheduler=None, fresh=False, quiet=False, log=None,
-              block_rows=BLOCK_ROWS, block_cols=BLOCK_COLS, cache_dir=None, card_label=None) -> MapResult:
+              block_rows=BLOCK_ROWS, block_cols=BLOCK_COLS, cache_dir=None, card_label=None,
+              training_table=None) -> MapResult:
     """Map a saved model: potential, zones and spread rasters plus ``map.json``.
 
     Parameters
@@ -317,6 +371,9 @@ def map_model(card, out_dir, *, dem=None, n_jobs=1, scheduler=None, fresh=False,
     card_label : str, optional
         Path of the card as recorded in ``map.json`` (default ``card`` as given);
         the run passes the card's final place.
+    training_table : path-like, optional
+        Read the training table (for the area of applicability) from here instead
+        of the card's path; its hash is still checked against the card.
 
     Returns
     -------
@@ -376,6 +433,9 @@ def map_model(card, out_dir, *, dem=None, n_jobs=1, scheduler=None, fresh=False,
     if not with_spread:
         log(f"{card_path.name} lists fewer than two fold models: no spread layer")
     fold_models = load_fold_models(saved) if with_spread else []
+    t0 = time.perf_counter()
+    applicability = _fit_applicability(card_data, card_path, log, training_table)
+    seconds["applicability_fit"] = round(time.perf_counter() - t0, 3)
     card_sha = file_digest(card_path)
     windows = list(iter_windows(grid, block_rows=int(block_rows), block_cols=int(block_cols)))
     out_dir.parent.mkdir(parents=True, exist_ok=True)
@@ -383,11 +443,13 @@ def map_model(card, out_dir, *, dem=None, n_jobs=1, scheduler=None, fresh=False,
         with staged_folder(out_dir) as staging:
             models_file = staging / ".models.pickle"
             with open(models_file, "wb") as f:
-                pickle.dump((single_threaded(saved.estimator), [single_threaded(m) for m in fold_models]), f,
+                pickle.dump((fast_predictor(single_threaded(saved.estimator)),
+                             [fast_predictor(single_threaded(m)) for m in fold_models], applicability), f,
                             protocol=pickle.HIGHEST_PROTOCOL)
             ctx = _Context(key=f"{models_file}:{card_sha}", models_file=str(models_file), grid=grid.to_dict(),
                            layers=source.layers, features=tuple(card_data["features"]), with_spread=with_spread,
-                           extras=tuple(EXTRA_LAYERS), chunk_rows=CHUNK_ROWS)
+                           extras=tuple(EXTRA_LAYERS) if applicability is not None else (),
+                           chunk_rows=CHUNK_ROWS)
             with bounded_gdal_cache():
                 t0 = time.perf_counter()
                 counts, missing, n_valid = _predict_pass(ctx, windows, staging, grid, n_jobs, scheduler, quiet,
@@ -400,12 +462,13 @@ def map_model(card, out_dir, *, dem=None, n_jobs=1, scheduler=None, fresh=False,
                 _refine_cuts(staging / "potential.tif", grid, cuts)
                 seconds["zone_cuts"] = round(time.perf_counter() - t0, 3)
                 t0 = time.perf_counter()
-                applicable = staging / "applicable.tif" if "applicable" in EXTRA_LAYERS else None
+                applicable = staging / "applicable.tif" if "applicable" in ctx.extras else None
                 code_counts = _zone_pass(staging, grid, names + [zones["remainder"]], cuts, applicable)
                 seconds["zones"] = round(time.perf_counter() - t0, 3)
             seconds["total"] = round(time.perf_counter() - t_start, 3)
             summary = _summary(card_data, card_label or str(card), card_sha, grid, source, zones, cuts, code_counts,
-                               n_valid, missing, ctx, n_jobs, scheduler, block_rows, block_cols, applicable, seconds)
+                               n_valid, missing, ctx, n_jobs, scheduler, block_rows, block_cols, applicability,
+                               seconds)
             for z in summary["zones"][:-1]:
                 if z["calibrated_area_share"] >= 1.0:
                     log(f"{card_data['name']}: zone {z['name']} covers the whole mapped area: on held-out sites the "
@@ -483,16 +546,20 @@ def _zone_pass(staging, grid, names, cuts, applicable):
     tags = {f"zone_{n_zones - i}": name for i, name in enumerate(names)}
     tags.update({f"zone_{NODATA_ZONE}": "nodata", f"zone_{ZONE_OUTSIDE}": "outside the area of applicability",
                  "layer": "zones", "software": f"mlsites {__version__}", "notice": _NOTICE})
-    code_counts = np.zeros(256, dtype=np.int64)
+    # codes 0-255 by score zone, then per score zone the cells outside the area of applicability
+    code_counts = np.zeros(512, dtype=np.int64)
     with AlignedRaster(staging / "potential.tif", grid) as src, \
             (AlignedRaster(applicable, grid, kind="categorical") if applicable else contextlib.nullcontext()) as app, \
             RasterWriter(staging / "zones.tif", grid, dtype=np.uint8, nodata=NODATA_ZONE, categorical=True,
                          description="zones", tags=tags) as out:
         for w in _strips(grid):
             codes = assign_zones(src.read(w.core), thresholds)
+            # counts by score zone, whether or not inside the area of applicability
+            code_counts[:256] += np.bincount(codes.ravel(), minlength=256)
             if app is not None:
-                codes[(app.read(w.core) == 0) & (codes != NODATA_ZONE)] = ZONE_OUTSIDE
-            code_counts += np.bincount(codes.ravel(), minlength=256)
+                outside = (app.read(w.core) == 0) & (codes != NODATA_ZONE)
+                code_counts[256:] += np.bincount(codes[outside], minlength=256)
+                codes[outside] = ZONE_OUTSIDE
             out.write(codes, window=w.core)
     # the colour table goes in after the writer renamed its file (it has no option for it)
     colours = dict.fromkeys(range(256), (0, 0, 0, 0)) | zone_colours(n_zones)  # unused codes transparent
@@ -502,7 +569,7 @@ def _zone_pass(staging, grid, names, cuts, applicable):
 
 
 def _summary(card, card_label, card_sha, grid, source, zones, cuts, code_counts, n_valid, missing, ctx, n_jobs,
-             scheduler, block_rows, block_cols, applicable, seconds):
+             scheduler, block_rows, block_cols, applicability, seconds):
     try:
         cell_km2 = grid.cell_area_m2() / 1e6
     except CRSError:  # geographic grid: cell areas vary by row
@@ -522,6 +589,7 @@ def _summary(card, card_label, card_sha, grid, source, zones, cuts, code_counts,
             "calibrated_area_share": z["area_share"] if z else 1.0,
             "threshold": cuts[i].threshold if z else None,
             "cells": cells,
+            "cells_outside_applicability": int(code_counts[256 + code]) if applicability is not None else None,
             "area_share": cells / n_valid,
             "cumulative_area_share": cum / n_valid,
             "area_km2": cells * cell_km2 if cell_km2 is not None else None,
@@ -540,7 +608,8 @@ def _summary(card, card_label, card_sha, grid, source, zones, cuts, code_counts,
                      "block_cols": int(block_cols), "chunk_rows": ctx.chunk_rows},
         "cells": {"grid": grid.n_cells, "mapped": n_valid, "without_values": grid.n_cells - n_valid,
                   "missing_by_layer": {l.name: int(m) for l, m in zip(source.layers, missing) if m},
-                  "outside_applicability": int(code_counts[ZONE_OUTSIDE]) if applicable else None},
+                  "outside_applicability": int(code_counts[256:].sum()) if applicability is not None else None},
+        "applicability": _applicability_summary(applicability, card),
         "zones": rows,
         "zone_codes": {str(NODATA_ZONE): "nodata", str(ZONE_OUTSIDE): "outside the area of applicability",
                        **{str(r["code"]): r["name"] for r in rows}},

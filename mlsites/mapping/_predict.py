@@ -25,8 +25,13 @@ CHUNK_ROWS = 16384
 def _predict_site(estimator, X):
     """Score of the site class (label 1) per row, float64.
 
-    The one place a map calls the estimator: swap in a compiled tree predictor here.
+    The one place a map calls the estimator. A
+    :class:`~mlsites.learners.SitePredictor` (the compiled tree walks of
+    :func:`~mlsites.learners.fast_predictor`, equal to ``predict_proba``) is called
+    on one thread: maps run in parallel over windows instead.
     """
+    if hasattr(estimator, "predict_site"):
+        return np.asarray(estimator.predict_site(X, n_threads=1), dtype=np.float64)
     proba = np.asarray(estimator.predict_proba(X))
     if proba.ndim != 2 or proba.shape[1] != 2:
         raise InputError(f"{type(estimator).__name__}.predict_proba returned shape {proba.shape}; expected "

@@ -52,7 +52,8 @@ def learners_to_map(option, ranking) -> list:
                       "learner names")
 
 
-def map_run_models(option, ranking, model_dir, maps_dir, *, final_model_dir, n_jobs=1, quiet=False, log=None):
+def map_run_models(option, ranking, model_dir, maps_dir, *, final_model_dir, training_table=None, n_jobs=1,
+                   quiet=False, log=None):
     """Map the chosen learners of a run into ``maps_dir/LEARNER/``.
 
     Parameters
@@ -68,6 +69,8 @@ def map_run_models(option, ranking, model_dir, maps_dir, *, final_model_dir, n_j
     final_model_dir : path-like
         Where the model cards will live once the run is published; ``map.json``
         records that path.
+    training_table : path-like, optional
+        Where the sample table is now (the cards name its published place).
     n_jobs : int
     quiet : bool
     log : callable, optional
@@ -84,7 +87,7 @@ def map_run_models(option, ranking, model_dir, maps_dir, *, final_model_dir, n_j
     for learner in learners_to_map(option, ranking):
         card = Path(model_dir) / f"{learner}.card.json"
         result = map_model(card, Path(maps_dir) / learner, n_jobs=n_jobs, quiet=quiet, log=log,
-                           card_label=str(Path(final_model_dir) / card.name))
+                           card_label=str(Path(final_model_dir) / card.name), training_table=training_table)
         zones = ", ".join(f"{z['name']} {100 * z['area_share']:.1f} %" for z in result.summary["zones"])
         log(f"map {learner}: {result.summary['cells']['mapped']} cells, zones by area {zones}")
         out[learner] = result.summary

@@ -20,8 +20,8 @@ def test_map_writes_the_named_files(study_run, tmp_path):
     card = study_run.models_dir / "logistic.card.json"
     result = invoke("map", card, "--out", tmp_path / "map")
     assert result.exit_code == 0, result.output
-    assert sorted(p.name for p in (tmp_path / "map").iterdir()) == ["map.json", "potential.tif", "spread.tif",
-                                                                   "zones.tif"]
+    assert sorted(p.name for p in (tmp_path / "map").iterdir()) == ["applicable.tif", "dissimilarity.tif", "map.json", "potential.tif",
+                                                                   "spread.tif", "zones.tif"]
     assert "high" in result.stderr and "map in" in result.stderr
     summary = json.loads((tmp_path / "map" / "map.json").read_text())
     assert summary["model_card"]["path"] == str(card)

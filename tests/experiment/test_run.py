@@ -165,7 +165,8 @@ def test_run_maps_the_best_learner_and_the_baseline_with_complete_cards(tmp_path
     assert result.manifest["maps"] == expected
     for learner in expected:
         folder = result.run_dir / "maps" / learner
-        assert sorted(p.name for p in folder.iterdir()) == ["map.json", "potential.tif", "spread.tif", "zones.tif"]
+        assert sorted(p.name for p in folder.iterdir()) == ["applicable.tif", "dissimilarity.tif", "map.json", "potential.tif",
+                                                                   "spread.tif", "zones.tif"]
         summary = json.loads((folder / "map.json").read_text())
         # map.json names the card where it lives after the run, with its hash (hashlib reference)
         card_path = result.models_dir / f"{learner}.card.json"

@@ -18,7 +18,7 @@ import rasterio
 from mlsites.errors import InputError, OutputExistsError
 from mlsites.evaluation import assign_zones, cut_for_area_share
 from mlsites.experiment._models import load_fold_models, load_model, save_model
-from mlsites.mapping import CHUNK_ROWS, ZONE_OUTSIDE, map_model, zone_colours
+from mlsites.mapping import CHUNK_ROWS, ZONE_OUTSIDE, ApplicabilityModel, map_model, zone_colours
 from mlsites.mapping._predict import single_threaded
 
 from tests.mapping.study import LEARNERS
@@ -100,6 +100,25 @@ def test_spread_is_the_sd_of_the_fold_models(study_run, maps, learner):
                                equal_nan=True)
 
 
+@pytest.mark.parametrize("learner", ["logistic", "random_forest"])
+def test_applicability_layers_equal_the_whole_array_model(study_run, maps, learner):
+    # reference: ApplicabilityModel (tested against METHODS.md §8 and brute force)
+    # fitted on the run's sample table and applied to the whole feature array at once
+    saved = load_model(card_of(study_run, learner))
+    card = saved.card
+    table = pd.read_parquet(card["training_table"]["path"])
+    model = ApplicabilityModel().fit(table[card["features"]], table["fold"].to_numpy(),
+                                     sample_weight=table["weight"].to_numpy(), categorical=card["categorical"])
+    X, valid = whole_features(card)
+    di = read_band(maps[learner].out_dir / "dissimilarity.tif")
+    app = read_band(maps[learner].out_dir / "applicable.tif")
+    expected = model.dissimilarity(X)
+    np.testing.assert_allclose(di[valid], expected.astype(np.float32), rtol=0, atol=0)
+    np.testing.assert_array_equal(app[valid], (expected <= model.threshold_).astype(np.float64))
+    assert np.all(np.isnan(di[~valid])) and np.all(np.isnan(app[~valid]))  # nodata (255) read as NaN
+    assert maps[learner].summary["applicability"]["threshold"] == pytest.approx(model.threshold_, rel=1e-12)
+
+
 def test_spread_is_zero_where_all_fold_models_agree(study_run, tmp_path):
     # a constant surface of disagreement: every fold model is the same fitted model
     saved = load_model(card_of(study_run, "logistic"))
@@ -128,8 +147,13 @@ def test_zone_areas_match_the_calibrated_shares(study_run, maps, learner):
     # reference: the array cut of the evaluation package on the whole potential
     thresholds = [cut_for_area_share(values, z["area_share"]) for z in calibrated]
     expected = assign_zones(potential, thresholds)
+    # cells outside the area of applicability carry a code of their own
+    applicable = read_band(maps[learner].out_dir / "applicable.tif")
+    outside = (applicable == 0) & (expected != 0)
+    expected[outside] = ZONE_OUTSIDE
     zones = read_band(maps[learner].out_dir / "zones.tif")
     np.testing.assert_array_equal(np.nan_to_num(zones, nan=0), expected)
+    assert summary["cells"]["outside_applicability"] == int(outside.sum())
     for z, row in zip(calibrated, summary["zones"]):
         assert row["name"] == z["name"]
         assert row["calibrated_area_share"] == z["area_share"]
@@ -163,8 +187,10 @@ def test_held_out_zone_shares_meet_their_targets_for_every_learner(study_run):
 
 def test_map_files_are_tiled_compressed_with_nodata_names_and_colours(maps):
     out = maps["gradient_boosting"].out_dir
-    assert sorted(p.name for p in out.iterdir()) == ["map.json", "potential.tif", "spread.tif", "zones.tif"]
-    for name, dtype in (("potential.tif", "float32"), ("spread.tif", "float32"), ("zones.tif", "uint8")):
+    assert sorted(p.name for p in out.iterdir()) == ["applicable.tif", "dissimilarity.tif", "map.json",
+                                                     "potential.tif", "spread.tif", "zones.tif"]
+    for name, dtype in (("potential.tif", "float32"), ("spread.tif", "float32"), ("zones.tif", "uint8"),
+                        ("dissimilarity.tif", "float32"), ("applicable.tif", "uint8")):
         with rasterio.open(out / name) as src:
             assert src.profile["tiled"] and src.profile["compress"] == "deflate", name
             assert src.dtypes[0] == dtype
@@ -182,7 +208,7 @@ def test_map_files_are_tiled_compressed_with_nodata_names_and_colours(maps):
     assert lum[0] > lum[1] > lum[2]
     summary = json.loads((out / "map.json").read_text())
     assert summary["model_card"]["learner"] == "gradient_boosting"
-    assert summary["cells"]["outside_applicability"] is None
+    assert summary["cells"]["outside_applicability"] == sum(z["cells_outside_applicability"] for z in summary["zones"])
     assert set(summary["seconds"]) >= {"features", "prediction", "zone_cuts", "zones", "total"}
 
 
