@@ -26,6 +26,7 @@ from mlsites import __version__
 from mlsites._files import link_or_copy, staged_folder
 from mlsites.errors import ConfigError, OutputExistsError
 from mlsites.experiment._hashing import entry_digest, file_digest, input_hashes, settings_digest
+from mlsites.experiment._stages import RunContext
 
 __all__ = ["RunResult", "run_experiment", "sample_experiment", "check_input_layers", "check_learner_settings",
            "output_roots", "samples_key"]
@@ -425,6 +426,29 @@ def _learner_factories(exp, categorical, seed, table):
     return factories
 
 
+#: Stages after the maps: (manifest name, module, function of a RunContext).
+_AFTER_MAPS = (
+    ("contributions", "mlsites.explain._in_run", "contributions_in_run"),
+    ("periods", "mlsites.periods._in_run", "periods_in_run"),
+    ("check", "mlsites.mapping._check", "check_in_run"),
+    ("report", "mlsites.report._in_run", "report_in_run"),
+)
+
+
+def _later_stage(ctx, stage, module, func):
+    """Run one later stage (see mlsites.experiment._stages); record what it returned."""
+    import importlib
+
+    run = getattr(importlib.import_module(module), func)
+    t0 = time.perf_counter()
+    out = run(ctx)
+    if out is not None:
+        ctx.results[stage] = out
+        seconds = time.perf_counter() - t0
+        ctx.log.stages[stage] = round(seconds, 2)
+        ctx.log(f"{stage}: done in {seconds:.1f} s")
+
+
 def _samples_only(run_dir: Path) -> bool:
     """True for a run folder holding only what ``mlsites sample`` wrote (no finished run)."""
     return run_dir.is_dir() and [p.name for p in run_dir.iterdir()] == ["samples"]
@@ -618,13 +642,20 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
                                fold_estimators=result.fold_models.get(lname, ()))
                     bar.update(1)
                     log(f"model {lname}: fitted on all {len(table)} samples in {time.perf_counter() - t0:.1f} s")
+        ctx = RunContext(exp=exp, name=name, run_dir=run_dir, models_dir=models_dir, staging=staging,
+                         model_staging=model_staging, table=table, features=features, categorical=categorical,
+                         grid=grid, crossval=result, factories=factories, splitter=splitter, seed=seed,
+                         n_jobs=n_jobs, quiet=quiet, log=log)
+        _later_stage(ctx, "explain", "mlsites.explain._in_run", "explain_in_run")
         with log.stage("maps"):
             from mlsites.mapping._run_maps import map_run_models
 
-            maps = map_run_models(exp["maps"]["learners"], list(result.summary["learner"]), model_staging,
-                                  staging / "maps", final_model_dir=models_dir,
-                                  training_table=staging / "samples" / "samples.parquet", n_jobs=n_jobs,
-                                  quiet=quiet, log=log)
+            ctx.maps = map_run_models(exp["maps"]["learners"], list(result.summary["learner"]), model_staging,
+                                      staging / "maps", final_model_dir=models_dir,
+                                      training_table=staging / "samples" / "samples.parquet", n_jobs=n_jobs,
+                                      quiet=quiet, log=log)
+        for stage, module, func in _AFTER_MAPS:
+            _later_stage(ctx, stage, module, func)
         log(f"run {name}: done in {time.perf_counter() - t_start:.1f} s")
         manifest = {
             "run": name, "experiment": exp.name, "experiment_file": str(exp.path),
@@ -635,7 +666,7 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
             "started_utc": started.isoformat(timespec="seconds"),
             "finished_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
             "run_dir": str(run_dir), "models_dir": str(models_dir), "learners": list(factories),
-            "maps": sorted(maps),
+            "maps": sorted(ctx.maps), "stages": ctx.results,
         }
         (staging / "manifest.json").write_text(json.dumps(manifest, indent=2, default=str) + "\n")
         (staging / "run.log").write_text("\n".join(log.lines) + "\n")
