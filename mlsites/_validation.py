@@ -4,12 +4,13 @@ from __future__ import annotations
 
 import math
 import numbers
+import re
 
 import numpy as np
 
 from mlsites.errors import InputError
 
-__all__ = ["check_cell_pair", "masked_as_nan"]
+__all__ = ["check_cell_pair", "masked_as_nan", "gdal_reason"]
 
 
 def check_cell_pair(cellsize, *, hint: str = "") -> tuple[float, float]:
@@ -58,3 +59,22 @@ def masked_as_nan(array):
     if isinstance(array, np.ma.MaskedArray):
         return np.ma.filled(array.astype(np.float64), np.nan)
     return array
+
+
+#: GDAL's advice to prefix the path with a driver name: meant for GDAL's own tools,
+#: not something a user of mlsites can do.
+_DRIVER_HINT = re.compile(r"[.;\s]*It might help to specify the correct driver.*$", re.S)
+
+
+def gdal_reason(exc) -> str:
+    """The reason in a GDAL/pyogrio/rasterio error, for one-line messages.
+
+    The first line only, without the quoted path (the message names the file
+    already) and without GDAL's driver-prefix advice.
+    """
+    text = str(exc).strip()
+    if not text:
+        return type(exc).__name__
+    text = _DRIVER_HINT.sub("", text.splitlines()[0])
+    text = re.sub(r"^'[^']*'\s*", "", text).strip().rstrip(".;")
+    return text or type(exc).__name__

@@ -32,3 +32,19 @@ def metric_grid():
 
 
 requires_gdaldem = pytest.mark.skipif(shutil.which("gdaldem") is None, reason="gdaldem (gdal-bin) not installed")
+
+
+@pytest.fixture(scope="session")
+def study_data(tmp_path_factory):
+    """Files of the tiny fictional mapping study (tests/mapping/study.py)."""
+    from tests.mapping.study import build_study_data
+
+    return build_study_data(tmp_path_factory.mktemp("map_study_data"))
+
+
+@pytest.fixture(scope="session")
+def study_run(tmp_path_factory, study_data):
+    """The mapping study run once: five learners, models with fold models, no maps."""
+    from tests.mapping.study import run_study
+
+    return run_study(tmp_path_factory.mktemp("map_study"), study_data)

@@ -15,6 +15,8 @@ _COMMANDS = {
     "demo": ("mlsites.cli.demo", "demo", "Build the fictional demo landscape and run what exists."),
     "run": ("mlsites.cli.run", "run", "Run an experiment file end to end."),
     "sample": ("mlsites.cli.sample", "sample", "Build the sample table and folds of an experiment."),
+    "periods": ("mlsites.cli.periods", "periods", "Sites through time: blocks, envelopes, density maps."),
+    "map": ("mlsites.cli.map", "map_command", "Map a saved model: potential, zones and spread rasters."),
 }
 
 

@@ -20,9 +20,9 @@ def run(experiment, fresh, name, n_jobs, quiet):
     """Run EXPERIMENT: samples, spatial cross-validation of every learner, models, tables.
 
     Writes RUNS_DIR/NAME/ (manifest.json, metrics_by_fold.csv, metrics_summary.csv,
-    zones.csv, curves.csv and PNGs, dropped_records.csv, run.log, samples/) and
-    MODELS_DIR/NAME/ (one model file and model card per learner). An existing run
-    is never replaced without --fresh.
+    zones.csv, curves.csv and PNGs, dropped_records.csv, run.log, samples/, maps/)
+    and MODELS_DIR/NAME/ (one model file and model card per learner, plus its fold
+    models). An existing run is never replaced without --fresh.
     """
     from mlsites.experiment import run_experiment
 

@@ -4,6 +4,7 @@ import click
 
 from mlsites.cli.main import handle_errors
 from mlsites.cli.options import comma_floats, comma_names, echo_unless, quiet_option
+from mlsites.experiment._config import FOLD_METHODS, SURVEY_MODES
 
 
 def _layer_pairs(ctx, param, values):
@@ -35,10 +36,9 @@ def _layer_pairs(ctx, param, values):
 @click.option("--background", "background_count", type=int, help="Number of background cells.")
 @click.option("--exclusion", "exclusion_m", type=float, help="Keep background this far from sites, metres.")
 @click.option("--survey", "survey_areas", type=click.Path(dir_okay=False), help="Survey-coverage polygons.")
-@click.option("--survey-mode", type=click.Choice(["inside", "weighted"]), help="Use of the survey polygons.")
+@click.option("--survey-mode", type=click.Choice(SURVEY_MODES), help="Use of the survey polygons.")
 @click.option("--effort-field", help="Survey effort column (weighted mode).")
-@click.option("--fold-method", type=click.Choice(["square_blocks", "hexagon_blocks", "buffered_leave_one_out",
-                                                  "environmental", "random"]), help="How folds are made.")
+@click.option("--fold-method", type=click.Choice(FOLD_METHODS), help="How folds are made.")
 @click.option("--folds", "n_splits", type=int, help="Number of folds.")
 @click.option("--block-size", "block_size_m", type=float, help="Block size in metres (default: from variograms).")
 @click.option("--buffer", "buffer_m", type=float, help="Buffer of buffered leave-one-out, metres.")

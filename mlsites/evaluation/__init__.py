@@ -1,5 +1,12 @@
 """Evaluation: validation measures and potential zones for held-out sites."""
 
+from mlsites.evaluation._checks import FEW_NEW_SITES, binomial_greater_pvalue, new_site_check, wilson_interval
+from mlsites.evaluation._calibration import (
+    area_ranks,
+    calibrate_zone_areas,
+    cut_for_area_share,
+    nearest_tie_cut,
+)
 from mlsites.evaluation._crossval import CrossValResult, cross_validate, write_crossval
 from mlsites.evaluation._metrics import (
     DEFAULT_TOP_AREA_SHARES,
@@ -16,7 +23,7 @@ from mlsites.evaluation._metrics import (
 from mlsites.evaluation._zones import (
     NODATA_ZONE,
     assign_zones,
-    indicative_values,
+    relative_site_density,
     zone_density_gini,
     zone_gains,
     zone_table,
@@ -37,10 +44,18 @@ __all__ = [
     "zone_thresholds",
     "assign_zones",
     "zone_table",
-    "indicative_values",
+    "relative_site_density",
     "zone_gains",
     "zone_density_gini",
     "NODATA_ZONE",
+    "wilson_interval",
+    "binomial_greater_pvalue",
+    "new_site_check",
+    "FEW_NEW_SITES",
+    "area_ranks",
+    "calibrate_zone_areas",
+    "cut_for_area_share",
+    "nearest_tie_cut",
     "CrossValResult",
     "cross_validate",
     "write_crossval",

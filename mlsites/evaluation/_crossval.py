@@ -9,7 +9,7 @@ out-of-fold scores.
 """
 
 from collections.abc import Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -24,7 +24,7 @@ from mlsites.evaluation._metrics import (
     capture_curve,
     evaluate_scores,
 )
-from mlsites.evaluation._zones import _zone_shares, assign_zones, zone_table, zone_thresholds
+from mlsites.evaluation._zones import _zone_shares, assign_zones, zone_thresholds
 
 __all__ = ["CrossValResult", "cross_validate", "write_crossval"]
 
@@ -52,7 +52,7 @@ class CrossValResult:
         One row per learner and fold, plus one pooled row per learner with
         ``fold == "all"``: ``learner``, ``fold``, ``n_train``, ``n_test_site_cells``,
         ``n_test_sites``, ``n_test_background``, ``landscape`` ("held_out" or
-        "all_background", see Notes of :func:`cross_validate`), then the measures
+        "within_buffer", see Notes of :func:`cross_validate`), then the measures
         of :func:`evaluate_scores` (``auc``, ``boyce``, ``captured_top_10`` ...,
         ``gini_zones``).
     summary : pandas.DataFrame
@@ -61,13 +61,25 @@ class CrossValResult:
         ``auc_diff_vs_best`` (mean over folds of this learner's AUC minus the
         best learner's), ``p_value_vs_best`` and ``test_vs_best``.
     zones : pandas.DataFrame
-        Per learner, the zone table of the pooled out-of-fold scores (columns of
-        :func:`zone_table`) plus ``heldout_area_share`` and ``heldout_site_share``:
-        the zones as each fold maps them from its training sites, pooled.
+        Per learner, one row per zone from the top (the remainder ``low`` last),
+        every share cumulative (the zone and all zones above it): ``target``;
+        ``area_share``, the least share of the area whose highest-scored cells hold
+        the target share of the pooled held-out sites (what a map is cut at);
+        ``calibration_site_share``, the held-out share it holds (at least the
+        target); ``heldout_area_share`` and ``heldout_site_share``, the zones of each
+        fold calibrated on the *other* folds and cut on its own landscape, pooled,
+        with ``heldout_site_share_ci_low`` and ``_ci_high`` (95 % Wilson interval
+        over ``n_heldout_sites``) and ``heldout_gain`` (Kvamme's gain). As a
+        diagnostic only, ``insample_cut_area_share`` and ``insample_cut_site_share``:
+        the held-out shares when each fold cuts its zones at its training sites'
+        own scores, which overfitting learners make far too small.
     oof : pandas.DataFrame
         ``sample_id``, ``learner``, ``fold``, ``score``: every held-out prediction.
     curves : pandas.DataFrame
         Long form ``learner``, ``curve`` ("capture" or "roc"), ``x``, ``y``.
+    fold_models : dict of str to list
+        Per learner, the fitted estimator of each fold, in fold order (kept for the
+        spread layer of a map, so nothing is refitted at map time).
     """
 
     by_fold: pd.DataFrame
@@ -75,6 +87,7 @@ class CrossValResult:
     zones: pd.DataFrame
     oof: pd.DataFrame
     curves: pd.DataFrame
+    fold_models: dict = field(default_factory=dict)
 
 
 # --------------------------------------------------------------------- checks
@@ -172,6 +185,15 @@ def _make_splits(table, fold_column, splitter, X, label, codes):
                     f"Fold {k} has no {what} cells among its {train.size} training rows; a learner needs "
                     f"both. Use fewer folds or a different block size."
                 )
+        if not (label[test] == 0).any():
+            untrained = np.ones(label.size, dtype=bool)
+            untrained[train] = False
+            if not (untrained & (label == 0)).any():
+                raise InsufficientDataError(
+                    f"Fold {k} has no background outside its {train.size} training rows to score its "
+                    f"held-out sites against (for buffered leave-one-site-out: no background cell within "
+                    f"the buffer of the held-out site). Use a larger buffer or more background cells."
+                )
     return splits
 
 
@@ -190,7 +212,7 @@ def _with_seed(estimator, seed):
 
 
 def _fit_and_score(factory, seed, X, label, weight, train, test, train_sites):
-    """Fit one fresh estimator; return its scores on the test rows and training sites."""
+    """Fit one fresh estimator; return its scores on the test rows and training sites, and itself."""
     from mlsites.learners import fit_learner
 
     est = _with_seed(factory(), seed)
@@ -205,17 +227,25 @@ def _fit_and_score(factory, seed, X, label, weight, train, test, train_sites):
     scores = proba[:, 1].astype(np.float64)
     if not np.all(np.isfinite(scores)):
         raise InputError(f"{type(est).__name__} predicted {int((~np.isfinite(scores)).sum())} non-finite score(s).")
-    return scores[: test.size], scores[test.size :]
+    return scores[: test.size], scores[test.size :], est
+
+
+#: ``landscape`` values: background among the fold's test rows, or background in
+#: neither its training nor its test rows (for buffered leave-one-site-out, the
+#: background within the buffer around the held-out site).
+LANDSCAPES = ("held_out", "within_buffer")
 
 
 @dataclass(frozen=True)
 class _FoldRows:
     """Rows of one fold: training rows and sites, test rows, landscape rows, rows to score.
 
-    The landscape is the fold's held-out background, or, when its test rows hold
-    none (buffered leave-one-site-out), all background outside the test rows.
-    ``scored`` lists the test rows, then landscape rows outside them; ``site_pos``
-    and ``land_pos`` index the held-out sites and the landscape in ``scored``.
+    The landscape is background the fold's model was not trained on: the fold's
+    held-out background, or, when its test rows hold none (buffered
+    leave-one-site-out), the background in neither its training nor its test rows
+    (the background within the buffer). ``scored`` lists the test rows, then
+    landscape rows outside them; ``site_pos`` and ``land_pos`` index the held-out
+    sites and the landscape in ``scored``.
     """
 
     train: np.ndarray
@@ -234,8 +264,8 @@ class _FoldRows:
         if held.size:
             land, source, scored, land_pos = test[held], "held_out", test, held
         else:
-            land = np.setdiff1d(background_rows, test)
-            source, scored = "all_background", np.concatenate((test, land))
+            land = np.setdiff1d(np.setdiff1d(background_rows, test), train)
+            source, scored = "within_buffer", np.concatenate((test, land))
             land_pos = test.size + np.arange(land.size)
         return cls(train, train[label[train] == 1], test, land, source, scored, site_pos, land_pos)
 
@@ -365,8 +395,9 @@ def cross_validate(
         Unknown feature or fold column, bad labels, weights, learners, zone targets
         or area shares (all checked before any fit).
     InsufficientDataError
-        A fold with no site cell among its test rows, or no site or background
-        cell among its training rows (checked before any fit).
+        A fold with no site cell among its test rows, no site or background cell
+        among its training rows, or no background outside its training rows to
+        score against (checked before any fit).
 
     Notes
     -----
@@ -382,22 +413,33 @@ def cross_validate(
     with their weights as ``site_weight`` (each site counts once) against the test
     background cells, weight 1, as ``landscape_scores``. A fold whose test rows hold
     no background (buffered leave-one-site-out without ``background_in_test``)
-    uses the fold model's scores of all background cells outside the test rows
-    instead; column ``landscape`` says which was used.
+    uses the background that is in neither its training nor its test rows instead:
+    for buffered leave-one-site-out, the background within the buffer of the
+    held-out site, which the fold's model never saw, just as it never saw the
+    site. Scoring against the training background instead would flatter every
+    learner that fits its training data closely. Column ``landscape`` says which
+    was used ("held_out" or "within_buffer"; "mixed" in the pooled row when folds
+    differ); ``n_test_background`` counts the landscape cells.
 
-    Zone thresholds of fold k come from the **training** sites' in-sample scores
-    (:func:`zone_thresholds` with the training weights), so the held-out
-    ``site_share_high`` tests the zones as they would be mapped. A learner that
-    overfits its training sites (e.g. fully grown trees) scores them too high, sets
-    the thresholds too high and captures fewer held-out sites than the target; that
-    is a true finding about the mapped zones, not a bug.
+    Zones are calibrated on held-out sites (METHODS.md §13). Each held-out site
+    cell is placed at its fold's area rank, the share of that fold's landscape
+    scoring at least as high (so scores of different fold models are never
+    compared with each other), and for each target t the least area share a(t)
+    whose top cells hold a share t of the held-out sites (weighted, each site
+    counting once) is read off the pooled ranks. ``zones.area_share`` is a(t) from
+    all folds: a map of the final model is cut at its own top a(t) of cells. To
+    test that rule on sites it has not seen, fold k's zones use a(t) calibrated on
+    the other folds only, cut on fold k's landscape (:func:`cut_for_area_share`);
+    its held-out ``site_share_<zone>`` and ``gain_<zone>`` measure those zones, and
+    ``zones.heldout_site_share`` pools them with a Wilson interval. Zones cut at the
+    training sites' own scores are kept only as the ``insample_cut_*`` diagnostic:
+    a learner that fits its training sites closely (fully grown trees) scores them
+    too high and its in-sample zones hold far fewer unseen sites than promised.
 
     The pooled row (``fold == "all"``) evaluates all held-out scores of the folds
     together (site cells with their weights, landscape cells of every fold with
     weight 1); its zone thresholds come from these pooled held-out site scores, so
-    its zone shares meet the targets by construction. ``zones`` lists those pooled
-    zones and, in ``heldout_area_share`` and ``heldout_site_share``, the pooled
-    shares when every fold uses its own training thresholds. ``curves`` holds the
+    its zone shares meet the targets by construction. ``curves`` holds the
     capture curve (share of sites against share of area, from
     :func:`capture_curve`) and the ROC curve (``sklearn.metrics.roc_curve``, site
     cells weighted) of the pooled scores; with a background sample of equal weights
@@ -458,17 +500,23 @@ def cross_validate(
     all_land = np.concatenate([f.land for f in folds])
     sources = {f.source for f in folds}
     pooled_source = sources.pop() if len(sources) == 1 else "mixed"
+    n_heldout_sites = int(np.unique(codes[all_test[label[all_test] == 1]]).size)
     fold_rows, oof_parts, zone_parts, curve_parts = [], [], [], []
+    fold_models = {}
     for i, name in enumerate(names):
-        pooled_sites, pooled_sw, pooled_land = [], [], []
-        pooled_codes_site, pooled_codes_land = [], []
+        per_fold = [outputs[i * n_folds + k] for k in range(n_folds)]
+        fold_models[name] = [est for _, _, est in per_fold]
+        site_scores = [s_all[f.site_pos] for f, (s_all, _, _) in zip(folds, per_fold)]
+        land_scores = [s_all[f.land_pos] for f, (s_all, _, _) in zip(folds, per_fold)]
+        site_weights = [weight[f.test[f.site_pos]] for f in folds]
+        calibration = _HeldOutCalibration(site_scores, land_scores, site_weights, zone_targets)
+        insample_site, insample_land = [], []
         for k, f in enumerate(folds):
-            s_all, s_train_sites = outputs[i * n_folds + k]
+            s_all, s_train_sites, _ = per_fold[k]
             site_rows = f.test[f.site_pos]
-            s_site, s_land = s_all[f.site_pos], s_all[f.land_pos]
-            thresholds = zone_thresholds(s_train_sites, targets=zone_targets, site_weight=weight[f.train_sites])
+            thresholds = calibration.fold_thresholds(k)
             metrics = evaluate_scores(
-                s_site, s_land, site_weight=weight[site_rows], thresholds=thresholds,
+                site_scores[k], land_scores[k], site_weight=site_weights[k], thresholds=thresholds,
                 top_area_shares=top_area_shares,
             )
             fold_rows.append(_fold_row(name, k, f.train.size, site_rows, f.land, codes, f.source, metrics))
@@ -476,22 +524,22 @@ def cross_validate(
                 "sample_id": sample_id[f.test], "learner": name, "fold": k,
                 "score": s_all[: f.test.size],
             }))
-            pooled_sites.append(s_site)
-            pooled_sw.append(weight[site_rows])
-            pooled_land.append(s_land)
-            pooled_codes_site.append(assign_zones(s_site, thresholds))
-            pooled_codes_land.append(assign_zones(s_land, thresholds))
-        s_site, sw, s_land = (np.concatenate(v) for v in (pooled_sites, pooled_sw, pooled_land))
+            # Diagnostic only: the zones as each fold would cut them from its training
+            # sites' own (in-sample) scores.
+            insample = zone_thresholds(s_train_sites, targets=zone_targets, site_weight=weight[f.train_sites])
+            insample_site.append(assign_zones(site_scores[k], insample))
+            insample_land.append(assign_zones(land_scores[k], insample))
+        s_site, sw, s_land = (np.concatenate(v) for v in (site_scores, site_weights, land_scores))
         thresholds = zone_thresholds(s_site, targets=zone_targets, site_weight=sw)
         metrics = evaluate_scores(s_site, s_land, site_weight=sw, thresholds=thresholds,
                                   top_area_shares=top_area_shares)
         fold_rows.append(_fold_row(name, POOLED_FOLD, np.nan, all_test[label[all_test] == 1],
                                    all_land, codes, pooled_source, metrics))
-        zt = zone_table(s_site, s_land, thresholds, site_weight=sw)
-        # The zones as each fold maps them from its own training sites, pooled.
+        zt = calibration.table(n_heldout_sites)
+        n_zones = len(zt)
+        zt["insample_cut_area_share"] = _cumulative(_zone_shares(np.concatenate(insample_land), None, n_zones))
+        zt["insample_cut_site_share"] = _cumulative(_zone_shares(np.concatenate(insample_site), sw, n_zones))
         zt.insert(0, "learner", name)
-        zt["heldout_area_share"] = _zone_shares(np.concatenate(pooled_codes_land), None, len(zt))
-        zt["heldout_site_share"] = _zone_shares(np.concatenate(pooled_codes_site), sw, len(zt))
         zone_parts.append(zt)
         curve_parts.append(_curves(name, s_site, sw, s_land))
 
@@ -504,7 +552,80 @@ def cross_validate(
         zones=pd.concat(zone_parts, ignore_index=True),
         oof=pd.concat(oof_parts, ignore_index=True),
         curves=pd.concat(curve_parts, ignore_index=True),
+        fold_models=fold_models,
     )
+
+
+def _cumulative(shares):
+    return np.minimum(np.cumsum(shares), 1.0)
+
+
+class _HeldOutCalibration:
+    """Zone area shares of one learner from its pooled held-out scores (METHODS.md §13).
+
+    Each held-out site cell is placed at its fold's area rank (share of the fold's
+    landscape scoring at least as high). ``a(t)`` from all folds is what a map of
+    the final model is cut at; fold k is tested with ``a(t)`` calibrated on the
+    other folds only, cut on its own landscape, so its sites check the calibration
+    without having taken part in it.
+    """
+
+    def __init__(self, site_scores, land_scores, site_weights, targets):
+        from mlsites.evaluation._calibration import area_ranks, calibrate_zone_areas
+
+        self.targets = dict(targets)
+        self.land_scores = land_scores
+        self.site_scores = site_scores
+        self.weights = site_weights
+        self.ranks = [area_ranks(s, land) for s, land in zip(site_scores, land_scores)]
+        self._calibrate = calibrate_zone_areas
+        self._fold_cuts = {}
+        self.area_shares = calibrate_zone_areas(np.concatenate(self.ranks), targets=self.targets,
+                                                site_weight=np.concatenate(site_weights))
+
+    def fold_thresholds(self, k):
+        """Score thresholds of fold k: its landscape cut at the shares of the other folds."""
+        from mlsites.evaluation._calibration import cut_for_area_share
+
+        if k in self._fold_cuts:
+            return self._fold_cuts[k]
+        others = [j for j in range(len(self.ranks)) if j != k]
+        shares = self._calibrate(np.concatenate([self.ranks[j] for j in others]), targets=self.targets,
+                                 site_weight=np.concatenate([self.weights[j] for j in others]))
+        self._fold_cuts[k] = {zone: cut_for_area_share(self.land_scores[k], a) for zone, a in shares.items()}
+        return self._fold_cuts[k]
+
+    def table(self, n_sites):
+        """Zone table: target, calibrated share, held-out test of it with a Wilson interval."""
+        from mlsites.evaluation._checks import wilson_interval
+        from mlsites.evaluation._metrics import kvamme_gain
+
+        names = list(self.targets)
+        n_zones = len(names) + 1
+        site_codes, land_codes = [], []
+        for k in range(len(self.ranks)):
+            thresholds = self.fold_thresholds(k)
+            site_codes.append(assign_zones(self.site_scores[k], thresholds))
+            land_codes.append(assign_zones(self.land_scores[k], thresholds))
+        w = np.concatenate(self.weights)
+        ranks = np.concatenate(self.ranks)
+        area = np.array([self.area_shares[z] for z in names] + [1.0])
+        held_site = _cumulative(_zone_shares(np.concatenate(site_codes), w, n_zones))
+        held_area = _cumulative(_zone_shares(np.concatenate(land_codes), None, n_zones))
+        calib_site = np.array([w[ranks <= a].sum() / w.sum() for a in area[:-1]] + [1.0])
+        ci = [wilson_interval(round(share * n_sites), n_sites) for share in held_site]
+        return pd.DataFrame({
+            "zone": names + ["low"],
+            "target": [self.targets[z] for z in names] + [1.0],
+            "area_share": area,
+            "calibration_site_share": np.minimum(calib_site, 1.0),
+            "heldout_area_share": held_area,
+            "heldout_site_share": held_site,
+            "heldout_site_share_ci_low": [lo for lo, _ in ci],
+            "heldout_site_share_ci_high": [hi for _, hi in ci],
+            "n_heldout_sites": n_sites,
+            "heldout_gain": kvamme_gain(held_site, held_area),
+        })
 
 
 def _fold_row(name, fold, n_train, site_rows, land, codes, source, metrics):

@@ -20,7 +20,7 @@ __all__ = [
     "zone_thresholds",
     "assign_zones",
     "zone_table",
-    "indicative_values",
+    "relative_site_density",
     "zone_gains",
     "zone_density_gini",
     "NODATA_ZONE",
@@ -212,7 +212,7 @@ def zone_table(
         ``zone``, ``lower_threshold`` and ``upper_threshold`` (the zone holds
         ``lower <= score < upper``; ``-inf`` and ``inf`` at the ends),
         ``area_share``, ``site_share``, ``site_density_ratio`` (Kj, see
-        :func:`indicative_values`), ``gain`` (per zone, ``1 - 1/Kj``),
+        :func:`relative_site_density`), ``gain`` (per zone, ``1 - 1/Kj``),
         ``cumulative_area_share``, ``cumulative_site_share`` and ``cumulative_gain``
         (Kvamme's gain of this zone together with all zones above it). Area and site
         shares each sum to 1.
@@ -239,7 +239,7 @@ def zone_table(
             "upper_threshold": np.concatenate(([np.inf], values)),
             "area_share": area_share,
             "site_share": site_share,
-            "site_density_ratio": indicative_values(site_share, area_share),
+            "site_density_ratio": relative_site_density(site_share, area_share),
             "gain": zone_gains(site_share, area_share),
             "cumulative_area_share": cum_area,
             "cumulative_site_share": cum_site,
@@ -271,7 +271,7 @@ def _check_zone_shares(site_shares, area_shares):
     return ps, pa
 
 
-def indicative_values(site_shares, area_shares):
+def relative_site_density(site_shares, area_shares):
     """Relative site density Kj = site share / area share of each zone.
 
     Parameters
@@ -299,7 +299,7 @@ def indicative_values(site_shares, area_shares):
 
     Examples
     --------
-    >>> indicative_values([0.5, 0.3, 0.2], [0.1, 0.3, 0.6]).round(4).tolist()
+    >>> relative_site_density([0.5, 0.3, 0.2], [0.1, 0.3, 0.6]).round(4).tolist()
     [5.0, 1.0, 0.3333]
     """
     ps, pa = _check_zone_shares(site_shares, area_shares)

@@ -2,7 +2,7 @@
 
 An experiment file has sections of our own naming (``[study]``, ``[inputs]``,
 ``[distances]``, ``[terrain]``, ``[sites]``, ``[sampling]``, ``[folds]``,
-``[learners]``, ``[evaluation]``, ``[outputs]``). Paths are relative to the file
+``[learners]``, ``[evaluation]``, ``[explain]``, ``[outputs]``, ``[periods]``). Paths are relative to the file
 that names them. ``extends = "base.toml"`` at the top merges the file over a base
 file, so a study keeps one base and many variants. All problems are collected and
 reported together, each with the file, the key (and line where known) and a hint.
@@ -62,6 +62,7 @@ SCHEMA: dict[str, dict[str, tuple]] = {
         "survey_areas": (str, None, True),
         "survey_mode": (str, "inside", False),
         "effort_field": (str, None, False),
+        "drop_unsurveyed_sites": (bool, False, False),
     },
     "folds": {
         "method": (str, "square_blocks", False),
@@ -73,9 +74,38 @@ SCHEMA: dict[str, dict[str, tuple]] = {
         "zone_targets": (dict, {"high": 0.7, "medium": 0.9}, False),
         "top_area_shares": (list, [0.1, 0.2, 0.33], False),
     },
+    # defaults as mlsites.explain.EXPLAIN_DEFAULTS (checked equal in the tests)
+    "explain": {
+        "n_explain": (int, 100, False),
+        "n_background": (int, 50, False),
+        "n_permutations": (int, 10, False),
+        "n_repeats": (int, 5, False),
+        "n_grid": (int, 20, False),
+        "survey_layers": (list, [], False),
+        "correlation_threshold": (_NUM, 0.8, False),
+    },
     "outputs": {
         "runs_dir": (str, "runs", True),
         "models_dir": (str, "models", True),
+    },
+    # Sites with uncertain dates; checked by mlsites.periods._settings.check_periods.
+    "periods": {
+        "block_width_years": (_NUM, 100.0, False),
+        "span": (list, None, False),
+        "origin_year": (_NUM, 0.0, False),
+        "end_inclusive": (bool, False, False),
+        "density": (str, "uniform", False),
+        "ramp_share": (_NUM, 0.25, False),
+        "n_simulations": (int, 1000, False),
+        "bandwidth_m": (_NUM, None, False),
+        "site_squares_m": (_NUM, 1000.0, False),
+        "category_field": (str, None, False),
+        "categories": (dict, {}, False),
+        "windows": (dict, {}, False),
+        "min_probability": (_NUM, 0.1, False),
+    },
+    "maps": {
+        "learners": ((str, list), "best_and_baseline", False),
     },
 }
 #: Sections whose keys are names chosen by the user, each a table of settings.
@@ -87,8 +117,14 @@ _NAMED_SECTIONS = {
     # [learners] use = [...]; [learners.<name>] settings passed to the preset
     "learners": None,
 }
+#: Fold methods by the one name each has in experiment files, command-line options,
+#: the splitters' ``describe()`` and fold files.
 FOLD_METHODS = ("square_blocks", "hexagon_blocks", "buffered_leave_one_out", "environmental", "random")
 SURVEY_MODES = ("inside", "weighted")
+#: Name of the zone below the last zone target (mlsites.evaluation's remainder).
+REMAINDER_ZONE = "low"
+#: Which learners a run maps: the best and the fuzzy baseline, the best only, all, none.
+MAP_CHOICES = ("best_and_baseline", "best", "all", "none")
 LAYER_KINDS = ("continuous", "categorical")
 
 
@@ -104,20 +140,83 @@ class Experiment:
     path: Path
     settings: dict
     sources: tuple
+    #: ``(file, text)`` of every file merged, the one read last (the top file) first.
+    texts: tuple = ()
+    #: Dotted keys set by command-line flags rather than by a file.
+    overrides: frozenset = frozenset()
 
     def __getitem__(self, section):
         return self.settings[section]
 
+    def where(self, key: str) -> str:
+        """``file:line`` of the setting ``key`` (dotted, ``"inputs.soil.band"``).
 
-def _line_of(text: str, key: str) -> int | None:
-    m = re.search(rf"^\s*\"?{re.escape(key)}\"?\s*=", text, flags=re.M)
-    if m is None:
-        m = re.search(rf"^\s*\[\s*{re.escape(key)}\s*\]", text, flags=re.M)
-    return text.count("\n", 0, m.start()) + 1 if m else None
+        The file is the one whose value counts (a variant before its ``extends``
+        base); the line is that of the key in its own table (an inline table's line
+        for keys inside it). A key set by no file gives the top file alone, one set
+        by a flag "command-line flags".
+        """
+        return _locate(self.texts, key, self.path, self.overrides)
 
 
-def _read_toml(path: Path, chain: tuple) -> tuple[dict, tuple]:
+_HEADER_RE = re.compile(r"^\s*\[\[?\s*([^\]]+?)\s*\]\]?\s*(?:#.*)?$")
+_KEY_RE = re.compile(r"^\s*((?:\"[^\"]*\"|'[^']*'|[A-Za-z0-9_-]+)(?:\s*\.\s*(?:\"[^\"]*\"|'[^']*'|[A-Za-z0-9_-]+))*)\s*=")
+
+
+def _key_parts(dotted: str) -> tuple:
+    return tuple(p.strip().strip("\"'") for p in re.findall(r"\"[^\"]*\"|'[^']*'|[^.]+", dotted))
+
+
+def _line_in(text: str, key: tuple) -> int | None:
+    """Line of ``key`` (a tuple of table and key names) in one TOML text.
+
+    Tables are followed from their ``[header]`` lines, so a key that appears in
+    several tables (``path``) is found in the right one. A key inside an inline
+    table (``soil = { path = ..., band = 2 }``) gives the inline table's line; a
+    table given only by its header gives the header's line.
+    """
+    table: tuple = ()
+    best = None
+    for number, line in enumerate(text.splitlines(), start=1):
+        m = _HEADER_RE.match(line)
+        if m:
+            table = _key_parts(m.group(1))
+            if table == key:
+                return number
+            continue
+        m = _KEY_RE.match(line)
+        if not m:
+            continue
+        full = table + _key_parts(m.group(1))
+        if full == key:
+            return number
+        if key[: len(full)] == full and best is None:
+            best = number  # an inline table (or array) holding the key
+    return best
+
+
+def _locate(texts, key: str, default_path, overrides=frozenset()) -> str:
+    if key in overrides:
+        return "command-line flags"
+    parts = _key_parts(key)
+    for path, text in texts:
+        line = _line_in(text, parts)
+        if line is not None:
+            return f"{path}:{line}"
+    for path, text in texts:  # a key not written anywhere: the table that lacks it
+        for n in range(len(parts) - 1, 0, -1):
+            line = _line_in(text, parts[:n])
+            if line is not None:
+                return f"{path}:{line}"
+    return str(default_path)
+
+
+def _read_toml(path: Path, chain: tuple, named_by: str | None = None) -> tuple[dict, tuple, tuple]:
+    """Data of an experiment file merged over its bases, the files (base first) and their texts (top first)."""
     if not path.exists():
+        if named_by:
+            raise ConfigError(f"{named_by}: extends = \"{path.name}\": file {path} not found; give the base file's "
+                              "name relative to the file that extends it")
         raise ConfigError(f"{path}: experiment file not found")
     if path in chain:
         raise ConfigError(f"{path}: 'extends' forms a loop ({' -> '.join(str(p) for p in chain + (path,))})")
@@ -129,11 +228,12 @@ def _read_toml(path: Path, chain: tuple) -> tuple[dict, tuple]:
     _absolutise(data, path.parent, text, path)
     base = data.pop("extends", None)
     if base is None:
-        return data, chain + (path,)
+        return data, chain + (path,), ((path, text),)
+    where = f"{path}:{_line_in(text, ('extends',))}"
     if not isinstance(base, str):
-        raise ConfigError(f"{path}: 'extends' must be a file name (string), got {base!r}")
-    base_data, sources = _read_toml((path.parent / base).resolve(), chain + (path,))
-    return _merge(base_data, data), _order(sources, path)
+        raise ConfigError(f"{where}: 'extends' must be a file name (string), got {base!r}")
+    base_data, sources, texts = _read_toml((path.parent / base).resolve(), chain + (path,), named_by=where)
+    return _merge(base_data, data), _order(sources, path), ((path, text),) + texts
 
 
 def _order(sources, path):
@@ -164,6 +264,8 @@ def _absolutise(data: dict, folder: Path, text: str, path: Path):
 
 
 def _type_name(t):
+    if isinstance(t, tuple) and t is not _NUM:
+        return " or ".join(_type_name(x) for x in t)
     if t is _NUM:
         return "number"
     return {str: "text", int: "whole number", bool: "true/false", list: "list", dict: "table"}.get(t, str(t))
@@ -177,14 +279,19 @@ def _check_type(value, types):
     return isinstance(value, types)
 
 
-def experiment_from_dict(data: dict, *, path: Path, text: str = "", sources=()) -> Experiment:
-    """Validate a merged experiment dict (paths already absolute) into an :class:`Experiment`."""
+def experiment_from_dict(data: dict, *, path: Path, text: str = "", sources=(), texts=(),
+                         overrides=frozenset()) -> Experiment:
+    """Validate a merged experiment dict (paths already absolute) into an :class:`Experiment`.
+
+    ``texts`` are ``(file, text)`` pairs of the files merged, top file first (from
+    :func:`load_experiment`), for the line of each problem; ``text`` alone stands
+    for the one file ``path``. ``overrides`` are dotted keys set by flags.
+    """
     problems: list[str] = []
+    texts = tuple(texts) or (((path, text),) if text else ())
 
     def bad(key, msg):
-        line = _line_of(text, key.split(".")[-1]) if text else None
-        where = f"{path}:{line}" if line else f"{path}"
-        problems.append(f"{where}: [{key}] {msg}")
+        problems.append(f"{_locate(texts, key, path, overrides)}: [{key}] {msg}")
 
     settings: dict = {}
     for section in data:
@@ -213,10 +320,13 @@ def experiment_from_dict(data: dict, *, path: Path, text: str = "", sources=()) 
     settings["distances"] = _check_distances(data.get("distances", {}), bad)
     settings["learners"] = _check_learners(data.get("learners", {}), bad)
     _check_values(settings, bad)
+    if len(problems) == 1:
+        raise ConfigError(problems[0])
     if problems:
-        raise ConfigError(f"{len(problems)} problem(s) in the experiment:\n" + "\n".join(problems))
+        raise ConfigError(f"{len(problems)} problems in the experiment:\n" + "\n".join(problems))
     name = settings["study"]["name"] or path.stem
-    return Experiment(name=name, path=path, settings=settings, sources=tuple(sources) or (path,))
+    return Experiment(name=name, path=path, settings=settings, sources=tuple(sources) or (path,), texts=texts,
+                      overrides=frozenset(overrides))
 
 
 def _check_inputs(inputs, bad):
@@ -243,6 +353,8 @@ def _check_inputs(inputs, bad):
             bad(f"inputs.{name}", "missing path")
         elif not Path(clean["path"]).exists():
             bad(f"inputs.{name}.path", f"file not found: {clean['path']}")
+        if clean["band"] < 1:
+            bad(f"inputs.{name}.band", f"band {clean['band']}; bands are numbered from 1")
         if clean["kind"] not in LAYER_KINDS:
             bad(f"inputs.{name}.kind", f"{clean['kind']!r} is not one of {', '.join(LAYER_KINDS)}")
         out[name] = clean
@@ -309,8 +421,12 @@ def _check_values(s, bad):
         bad("sampling.survey_mode", f"{sa['survey_mode']!r} is not one of {', '.join(SURVEY_MODES)}")
     if sa["survey_mode"] == "weighted" and not sa["effort_field"]:
         bad("sampling.effort_field", "survey_mode = \"weighted\" needs effort_field, the column of survey effort")
-    if sa["site_buffer_m"] < 0 or sa["exclusion_m"] < 0:
-        bad("sampling.site_buffer_m", "distances must be zero or positive")
+    if sa["drop_unsurveyed_sites"] and not (sa["survey_areas"] and sa["survey_mode"] == "inside"):
+        bad("sampling.drop_unsurveyed_sites", "applies only with survey_areas and survey_mode = \"inside\"; "
+            "give both or remove the key")
+    for key in ("site_buffer_m", "exclusion_m"):
+        if sa[key] < 0:
+            bad(f"sampling.{key}", f"{sa[key]:g} m; distances must be zero or positive (metres)")
     if sa["background_count"] is not None and sa["background_count"] < 1:
         bad("sampling.background_count", "must be at least 1")
     if sa["background_fraction"] is not None and not 0 < sa["background_fraction"] <= 1:
@@ -327,13 +443,61 @@ def _check_values(s, bad):
     targets = s["evaluation"]["zone_targets"]
     prev = 0.0
     for zone, share in targets.items():
-        if not isinstance(share, _NUM) or not prev < share <= 1:
-            bad(f"evaluation.zone_targets.{zone}", "site shares must increase from the top zone and lie in (0, 1]")
+        if zone == REMAINDER_ZONE:
+            bad(f"evaluation.zone_targets.{zone}", f"{zone!r} is the zone below the last target (the rest of "
+                "the area); name the zones with targets otherwise, e.g. { high = 0.7, medium = 0.9 }")
+            break
+        if isinstance(share, bool) or not isinstance(share, _NUM) or not prev < share <= 1:
+            bad(f"evaluation.zone_targets.{zone}", f"{zone} = {share!r}: site shares must increase from the "
+                "top zone and lie in (0, 1], e.g. { high = 0.7, medium = 0.9 }")
             break
         prev = share
+    shares = s["evaluation"]["top_area_shares"]
+    numbers = [v for v in shares if isinstance(v, _NUM) and not isinstance(v, bool)]
+    if not shares or len(numbers) < len(shares) or not all(0 < v <= 1 for v in numbers):
+        bad("evaluation.top_area_shares", f"{shares!r}: give area shares in (0, 1], e.g. [0.1, 0.2, 0.33] "
+            "(shares, not percentages)")
+    elif len({round(100.0 * v, 6) for v in numbers}) < len(numbers):
+        bad("evaluation.top_area_shares", f"{shares!r} repeats a share; list each share once")
+    _check_terrain(s["terrain"], s["distances"], bad)
+    ex = s["explain"]
+    for key in ("n_explain", "n_background", "n_permutations", "n_repeats", "n_grid"):
+        if ex[key] < 1:
+            bad(f"explain.{key}", f"must be at least 1, got {ex[key]}")
+    if not 0 < ex["correlation_threshold"] < 1:
+        bad("explain.correlation_threshold", f"must lie in (0, 1), got {ex['correlation_threshold']}")
+    if not all(isinstance(v, str) for v in ex["survey_layers"]):
+        bad("explain.survey_layers", "expected a list of layer names, e.g. [\"distance_roads\"]")
+    maps = s["maps"]["learners"]
+    if isinstance(maps, str) and maps not in MAP_CHOICES:
+        bad("maps.learners", f"{maps!r} is not one of {', '.join(MAP_CHOICES)} (or a list of learner names)")
+    elif isinstance(maps, list):
+        unused = [m for m in maps if m not in s["learners"]["use"]]
+        if unused or not all(isinstance(m, str) for m in maps):
+            bad("maps.learners", f"{unused or maps} not among the learners used ({', '.join(s['learners']['use'])})")
     for name in s["inputs"]:
         if name in s["distances"]:
             bad(f"inputs.{name}", "the same name is used in [distances]")
+    from mlsites.periods._settings import check_periods
+
+    check_periods(s["periods"], bad)
+
+
+def _check_terrain(t, distances, bad):
+    radii = t["tpi_radii_m"]
+    if not all(isinstance(r, _NUM) and not isinstance(r, bool) and r > 0 for r in radii):
+        bad("terrain.tpi_radii_m", f"{radii!r}: radii are positive distances in metres, e.g. [100, 500]")
+        return
+    from mlsites.errors import InputError
+    from mlsites.terrain._pipeline import TerrainSettings, layer_names
+
+    if not all(isinstance(n, str) for n in t["layers"]):
+        bad("terrain.layers", f"{t['layers']!r}: expected a list of layer names")
+        return
+    try:
+        layer_names(TerrainSettings(layers=tuple(t["layers"]), tpi_radii_m=tuple(radii), vectors=dict(distances)))
+    except InputError as exc:
+        bad("terrain.layers", str(exc))
 
 
 def load_experiment(path) -> Experiment:
@@ -345,8 +509,8 @@ def load_experiment(path) -> Experiment:
         With every problem found, one per line, each naming file, key and line.
     """
     path = Path(path).resolve()
-    data, sources = _read_toml(path, ())
-    return experiment_from_dict(data, path=path, text=path.read_text(encoding="utf-8"), sources=sources)
+    data, sources, texts = _read_toml(path, ())
+    return experiment_from_dict(data, path=path, sources=sources, texts=texts)
 
 
 #: Command-line flag names of ``mlsites sample`` -> (section, key) of the experiment.
@@ -386,10 +550,10 @@ def experiment_from_flags(experiment=None, *, inputs=None, **flags) -> Experimen
     """
     if experiment is not None:
         path = Path(experiment).resolve()
-        data, sources = _read_toml(path, ())
-        text = path.read_text(encoding="utf-8")
+        data, sources, texts = _read_toml(path, ())
     else:
-        path, data, sources, text = Path.cwd() / "command-line flags", {}, (), ""
+        path, data, sources, texts = Path.cwd() / "command-line flags", {}, (), ()
+    overrides = set()
     for flag, value in flags.items():
         if flag not in FLAG_KEYS:
             raise ConfigError(f"unknown option {flag!r}")
@@ -398,6 +562,8 @@ def experiment_from_flags(experiment=None, *, inputs=None, **flags) -> Experimen
         section, key = FLAG_KEYS[flag]
         is_path = SCHEMA[section][key][2]
         data.setdefault(section, {})[key] = str(Path(value).resolve()) if is_path else value
+        overrides.add(f"{section}.{key}")
     for name, (p, kind) in (inputs or {}).items():
         data.setdefault("inputs", {})[name] = {"path": str(Path(p).resolve()), "kind": kind}
-    return experiment_from_dict(data, path=path, text=text, sources=sources)
+        overrides |= {f"inputs.{name}", f"inputs.{name}.path", f"inputs.{name}.kind"}
+    return experiment_from_dict(data, path=path, sources=sources, texts=texts, overrides=overrides)

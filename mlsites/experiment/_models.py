@@ -20,7 +20,7 @@ from mlsites._files import replacing
 from mlsites.errors import InputError
 from mlsites.experiment._hashing import file_digest
 
-__all__ = ["SavedModel", "TRUSTED_TYPES", "library_versions", "load_model", "save_model"]
+__all__ = ["SavedModel", "TRUSTED_TYPES", "library_versions", "load_fold_models", "load_model", "save_model"]
 
 #: Types beyond skops' defaults that a preset pipeline holds and that load as plain
 #: data (tree arrays, optimiser state, the boosting predictor and its input check).
@@ -67,7 +67,8 @@ def library_versions() -> dict:
 
 
 def save_model(estimator, directory, name, *, features, categorical=(), grid=None,
-               training_data_sha256=None, settings=None, metrics=None, extra=None) -> SavedModel:
+               training_data_sha256=None, settings=None, metrics=None, extra=None,
+               fold_estimators=()) -> SavedModel:
     """Write a fitted estimator as ``NAME.skops`` and its card as ``NAME.card.json``.
 
     Parameters
@@ -91,6 +92,10 @@ def save_model(estimator, directory, name, *, features, categorical=(), grid=Non
         Cross-validated measures (one row of ``metrics_summary.csv``).
     extra : dict, optional
         Further card entries (experiment name, run directory ...).
+    fold_estimators : sequence of fitted estimators, optional
+        The cross-validation's model of each fold, saved beside the model as
+        ``NAME.fold<k>.skops`` and listed with their SHA-256 under ``fold_models``
+        in the card (the spread layer of a map predicts with them).
 
     Returns
     -------
@@ -104,6 +109,12 @@ def save_model(estimator, directory, name, *, features, categorical=(), grid=Non
     card_path = directory / f"{name}{CARD_SUFFIX}"
     with replacing(model_path) as tmp:
         sio.dump(estimator, tmp, compression=zipfile.ZIP_DEFLATED)
+    fold_models = []
+    for k, fold_estimator in enumerate(fold_estimators):
+        fold_path = directory / f"{name}.fold{k}{MODEL_SUFFIX}"
+        with replacing(fold_path) as tmp:
+            sio.dump(fold_estimator, tmp, compression=zipfile.ZIP_DEFLATED)
+        fold_models.append({"file": fold_path.name, "sha256": file_digest(fold_path)})
     if grid is not None and not isinstance(grid, dict):
         grid = grid.to_dict()
     card = {
@@ -118,6 +129,7 @@ def save_model(estimator, directory, name, *, features, categorical=(), grid=Non
         "training_data_sha256": training_data_sha256,
         "settings": settings or {},
         "cross_validated": metrics or {},
+        "fold_models": fold_models,
         "versions": library_versions(),
         **(extra or {}),
     }
@@ -172,8 +184,6 @@ def load_model(path) -> SavedModel:
     default; each must be an mlsites type or in :data:`TRUSTED_TYPES`, and only
     those are passed to :func:`skops.io.load`.
     """
-    import skops.io as sio
-
     card_path, model_path = _card_and_model_paths(Path(path))
     if not card_path.exists():
         raise InputError(f"{card_path}: model card not found; a model is only loaded with its card")
@@ -185,10 +195,18 @@ def load_model(path) -> SavedModel:
         model_path = card_path.with_name(card.get("model_file", ""))
     if not model_path.is_file():
         raise InputError(f"{model_path}: model file named by {card_path.name} not found")
+    estimator = _load_checked(model_path, card.get("model_sha256"), card_path)
+    return SavedModel(estimator, card, model_path, card_path)
+
+
+def _load_checked(model_path: Path, expected_sha256, card_path: Path):
+    """Load a skops file after checking its SHA-256 and its types (see :func:`load_model`)."""
+    import skops.io as sio
+
     digest = file_digest(model_path)
-    if digest != card.get("model_sha256"):
+    if digest != expected_sha256:
         raise InputError(
-            f"{model_path}: SHA-256 {digest[:16]}... differs from {card.get('model_sha256', 'none')!s:.16}... "
+            f"{model_path}: SHA-256 {digest[:16]}... differs from {expected_sha256 or 'none'!s:.16}... "
             f"in {card_path.name}; refusing to load a model file its card does not vouch for "
             "(re-run the experiment to rebuild it)"
         )
@@ -197,5 +215,33 @@ def load_model(path) -> SavedModel:
     if unknown:
         raise InputError(f"{model_path}: holds type(s) outside the trusted set ({', '.join(unknown)}); "
                          "refusing to load it")
-    estimator = sio.load(model_path, trusted=untrusted)
-    return SavedModel(estimator, card, model_path, card_path)
+    return sio.load(model_path, trusted=untrusted)
+
+
+def load_fold_models(saved: SavedModel) -> list:
+    """The fold models listed in a model card, each checked like the model itself.
+
+    Parameters
+    ----------
+    saved : SavedModel
+        From :func:`load_model`.
+
+    Returns
+    -------
+    list of fitted estimators
+        In fold order; empty when the card lists none.
+
+    Raises
+    ------
+    InputError
+        A listed file is missing, its SHA-256 differs from the card's or it holds
+        an untrusted type.
+    """
+    models = []
+    for entry in saved.card.get("fold_models") or []:
+        path = saved.card_path.with_name(entry["file"])
+        if not path.is_file():
+            raise InputError(f"{path}: fold model named by {saved.card_path.name} not found; re-run the "
+                             "experiment to rebuild it")
+        models.append(_load_checked(path, entry.get("sha256"), saved.card_path))
+    return models

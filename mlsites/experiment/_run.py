@@ -1,9 +1,9 @@
 """Run a whole experiment: inputs, samples, spatial cross-validation, models, tables.
 
 :func:`run_experiment` is the body of ``mlsites run``. Every output is built in a
-staging folder beside its destination and renamed into place only when the run
-succeeded, so a failed run leaves nothing half-written and an existing run is
-never replaced unless asked for (``fresh``). Derived terrain layers and the sample
+staging folder beside its destination (:func:`mlsites._files.staged_folder`) and
+renamed into place only when the run succeeded, so a failed run leaves nothing
+half-written and an existing run is never replaced unless asked for (``fresh``). Derived terrain layers and the sample
 table are cached under ``<runs_dir>/.cache`` by a hash of their inputs and
 settings, so a second run only redoes what changed.
 """
@@ -16,8 +16,6 @@ import functools
 import json
 import os
 import re
-import shutil
-import tempfile
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -25,11 +23,13 @@ from pathlib import Path
 import numpy as np
 
 from mlsites import __version__
+from mlsites._files import link_or_copy, staged_folder
 from mlsites.errors import ConfigError, OutputExistsError
-from mlsites.experiment._hashing import file_digest, input_hashes, settings_digest
+from mlsites.experiment._hashing import entry_digest, file_digest, input_hashes, settings_digest
+from mlsites.experiment._stages import RunContext
 
-__all__ = ["RunResult", "run_experiment", "sample_experiment", "check_input_layers", "output_roots",
-           "samples_key"]
+__all__ = ["RunResult", "run_experiment", "sample_experiment", "check_input_layers", "check_learner_settings",
+           "output_roots", "samples_key"]
 
 #: An integer layer declared continuous with this many distinct codes or fewer (but
 #: more than two, where both kinds give the same model) is taken for a class map.
@@ -95,7 +95,7 @@ def samples_key(exp, hashes=None) -> str:
     """Hash of everything the sample table depends on (settings, file bytes, version)."""
     hashes = input_hashes(exp) if hashes is None else hashes
     return settings_digest({"settings": {s: exp[s] for s in _SAMPLE_SECTIONS},
-                            "files": {k: v["sha256"] for k, v in hashes.items()},
+                            "files": {k: entry_digest(v) for k, v in hashes.items()},
                             "version": __version__})[:16]
 
 
@@ -128,7 +128,8 @@ def check_input_layers(exp, grid, log=None) -> dict:
     Raises
     ------
     ConfigError
-        A layer declared continuous looks categorical, or the reverse.
+        A band the raster does not have, a layer declared continuous that looks
+        categorical, or the reverse.
 
     Notes
     -----
@@ -155,8 +156,9 @@ def check_input_layers(exp, grid, log=None) -> dict:
                 log(f"aligned {name} from {_crs_label(src.crs)}, {abs(src.res[0]):g} x {abs(src.res[1]):g} "
                     f"cells onto the study grid ({how})")
             status[name] = "aligned" if aligned else "on grid"
-            if not 1 <= band <= src.count:
-                continue  # reported with the file name when the layer is read
+            if band > src.count:
+                raise ConfigError(f"{exp.where(f'inputs.{name}.band')}: [inputs.{name}] band = {band}, but "
+                                  f"{path} has {src.count} band(s); give a band from 1 to {src.count}")
             shape = (min(src.height, _INSPECT_CELLS), min(src.width, _INSPECT_CELLS))
             values = src.read(band, out_shape=shape, resampling=Resampling.nearest, masked=True)
             dtype = np.dtype(src.dtypes[band - 1])
@@ -165,7 +167,7 @@ def check_input_layers(exp, grid, log=None) -> dict:
         values = values[np.isfinite(values)]
         codes = np.unique(values)
         class_tags = sorted(k for k in tags if k.startswith("class_"))
-        where = f"{exp.path}: [inputs.{name}]"
+        where = f"{exp.where(f'inputs.{name}.kind')}: [inputs.{name}]"
         if kind == "continuous":
             reason = None
             if class_tags:
@@ -191,28 +193,23 @@ def check_input_layers(exp, grid, log=None) -> dict:
 # ---------------------------------------------------------------- samples
 
 
-def _cached_samples(exp, cache_dir: Path, *, fresh, quiet, log, hashes=None) -> tuple[Path, str, bool]:
-    """Folder of the experiment's sample files in the cache; built unless cached.
+def _cached_samples(exp, cache_dir: Path, grid, *, fresh, quiet, log, hashes):
+    """The experiment's sample set from the cache, built there unless cached.
 
-    ``hashes`` (from :func:`input_hashes`) saves hashing the inputs again when the
-    caller already has them.
+    Returns ``(samples, key, cached)``. A table just built is passed on in memory
+    (it equals its parquet file, see :func:`prepare_samples`); a cached one is
+    read from the cache folder. Either way ``samples.folder`` is the cache folder.
     """
     from mlsites.experiment._samples import prepare_samples
 
-    hashes = input_hashes(exp) if hashes is None else hashes
     key = samples_key(exp, hashes)
     folder = cache_dir / f"samples-{key}"
     if (folder / "samples.parquet").exists() and not fresh:
         log(f"sample table: cached in {folder.name}")
-        return folder, key, True
-    cache_dir.mkdir(parents=True, exist_ok=True)
-    staging = _staging_dir(cache_dir, f".samples-{key}.partial-")
-    try:
-        prepare_samples(exp, staging, cache_dir=cache_dir, fresh=fresh, quiet=quiet, log=log, hashes=hashes)
-        _swap_into_place(staging, folder)
-    finally:
-        shutil.rmtree(staging, ignore_errors=True)
-    return folder, key, False
+        return _load_sample_set(folder), key, True
+    samples = prepare_samples(exp, folder, grid=grid, cache_dir=cache_dir, fresh=True, quiet=quiet, log=log,
+                              hashes=hashes)
+    return samples, key, False
 
 
 def _load_sample_set(folder: Path):
@@ -224,6 +221,11 @@ def _load_sample_set(folder: Path):
     table = pd.read_parquet(folder / "samples.parquet")
     return SampleSet(table=table, features=list(summary["features"]), categorical=list(summary["categorical"]),
                      folder=folder, summary=summary)
+
+
+def _sample_files(folder: Path):
+    """The files of a sample folder (not staging leftovers)."""
+    return sorted(p for p in folder.iterdir() if p.is_file() and not p.name.startswith("."))
 
 
 def output_roots(exp) -> tuple[Path, Path]:
@@ -240,7 +242,7 @@ def output_roots(exp) -> tuple[Path, Path]:
 def _check_name(name: str, exp) -> str:
     if not _NAME_RE.match(name or ""):
         raise ConfigError(f"{exp.path}: run name {name!r} cannot be a folder name; use letters, digits, "
-                          "'_', '-' and '.' (not starting with '.'), e.g. --name {exp.name}_2")
+                          f"'_', '-' and '.' (not starting with '.'), e.g. --name {exp.name}_2")
     return name
 
 
@@ -264,7 +266,7 @@ def sample_experiment(path, *, out_dir=None, fresh=False, quiet=False, log=None)
     Returns
     -------
     SampleSet
-        Read back from ``out_dir``.
+        With ``folder`` = ``out_dir``.
 
     Raises
     ------
@@ -273,8 +275,10 @@ def sample_experiment(path, *, out_dir=None, fresh=False, quiet=False, log=None)
     ConfigError, InputError, InsufficientDataError, ...
         Before anything is written to ``out_dir``.
     """
+    from dataclasses import replace
+
     from mlsites.experiment._config import Experiment, load_experiment
-    from mlsites.experiment._samples import publish_samples
+    from mlsites.experiment._samples import SAMPLE_FILES
     from mlsites.grid import read_grid
 
     log = _Log(log)
@@ -284,39 +288,165 @@ def sample_experiment(path, *, out_dir=None, fresh=False, quiet=False, log=None)
     if (out_dir / "samples.parquet").exists() and not fresh:
         raise OutputExistsError(f"{out_dir}: sample files exist already; use --fresh to replace them "
                                 "or --out for another folder")
-    check_input_layers(exp, read_grid(exp["study"]["dem"]), log)
+    grid = read_grid(exp["study"]["dem"])
+    check_input_layers(exp, grid, log)
+    cache_dir = runs_dir / ".cache"
     with log.stage("samples"):
-        folder, _, _ = _cached_samples(exp, runs_dir / ".cache", fresh=fresh, quiet=quiet, log=log)
-    out_dir.mkdir(parents=True, exist_ok=True)
-    staging = Path(tempfile.mkdtemp(prefix=".samples.partial-", dir=out_dir))
-    try:
-        for p in folder.iterdir():
-            shutil.copy2(p, staging / p.name)
-        publish_samples(staging, out_dir)
-    finally:
-        shutil.rmtree(staging, ignore_errors=True)
-    return _load_sample_set(out_dir)
+        hashes = input_hashes(exp, memo_dir=cache_dir)
+        samples, _, _ = _cached_samples(exp, cache_dir, grid, fresh=fresh, quiet=quiet, log=log, hashes=hashes)
+    with staged_folder(out_dir, files=SAMPLE_FILES) as staging:
+        for p in _sample_files(samples.folder):
+            link_or_copy(p, staging / p.name)
+    return replace(samples, folder=out_dir)
 
 
 # ---------------------------------------------------------------- the run
 
 
-def _learner_factories(exp, categorical, seed):
-    from mlsites.learners import make_learner
+#: Learner settings the run sets itself, and where the user sets them instead.
+_RUN_SET = {"random_state": "[study] seed", "n_jobs": "--jobs", "categorical_features": "the kind of each layer"}
+#: Settings that only scale the work; a dry fit caps them so it stays instant.
+_SIZE_KEYS = ("n_estimators", "max_iter")
+
+
+def _learner_params(exp, name) -> dict:
+    params = dict(exp["learners"]["settings"].get(name, {}))
+    for key, value in params.items():
+        if isinstance(value, list):  # TOML has no tuples (hidden_layer_sizes and the like)
+            params[key] = tuple(value)
+    return params
+
+
+def _valid_settings(name) -> list[str]:
+    """Setting names of a learner: its estimator's parameters and the preset's options."""
+    import inspect
+
+    from mlsites.learners import LEARNERS, make_learner
+
+    model = make_learner(name).named_steps["model"]
+    options = [p.name for p in inspect.signature(LEARNERS[name]).parameters.values()
+               if p.kind is p.KEYWORD_ONLY]
+    return sorted((set(model.get_params(deep=False)) | set(options)) - set(_RUN_SET))
+
+
+def _dry_table(n_categorical):
+    """24 invented rows (half sites) with two numeric layers and the categorical ones."""
+    import pandas as pd
+
+    rng = np.random.default_rng(0)
+    columns = {"a": rng.random(24), "b": rng.random(24)}
+    columns.update({f"c{i}": np.tile([1.0, 2.0, 3.0], 8) for i in range(n_categorical)})
+    return pd.DataFrame(columns), np.r_[np.ones(12, dtype=int), np.zeros(12, dtype=int)]
+
+
+def check_learner_settings(exp) -> None:
+    """Check the names and values of every ``[learners.<name>]`` setting before any work.
+
+    Names are checked against the learner's settings; values by scikit-learn's own
+    parameter validation and then by a dry fit on 24 invented rows (with the
+    iteration and tree counts capped, so it takes a moment), which also catches
+    combinations that are only refused when fitting (a penalty the solver lacks).
+
+    Raises
+    ------
+    ConfigError
+        One line per problem, with file and line, in the words of the experiment
+        file; the valid settings of a learner are listed once.
+    """
+    import warnings
+
+    from mlsites.learners import fit_learner, make_learner
+
+    if not exp["learners"]["use"]:
+        raise ConfigError(f"{exp.where('learners.use')}: [learners] use is empty; name at least one learner")
+    n_categorical = min(1, sum(spec["kind"] == "categorical" for spec in exp["inputs"].values())
+                        + ("landform" in exp["terrain"]["layers"]))
+    problems = []
+    for name in exp["learners"]["use"]:
+        params = _learner_params(exp, name)
+        valid = _valid_settings(name)
+
+        def bad(key, msg, name=name):
+            problems.append(f"{exp.where(f'learners.{name}.{key}')}: [learners.{name}] {msg}")
+
+        unknown = [k for k in params if k not in valid and k not in _RUN_SET]
+        for key in [k for k in params if k in _RUN_SET]:
+            bad(key, f"{key} is set by the run; use {_RUN_SET[key]} instead")
+        for key in unknown:
+            bad(key, f"unknown setting {key!r}")
+        if unknown:
+            problems[-1] += f"; settings of {name} are {', '.join(valid)}"
+        if unknown or any(k in _RUN_SET for k in params):
+            continue
+        learner = make_learner(name, random_state=exp["study"]["seed"],
+                               categorical_features=[f"c{i}" for i in range(n_categorical)], **params)
+        model = learner.named_steps["model"]
+        if hasattr(model, "_parameter_constraints"):
+            try:
+                model._validate_params()
+            except ValueError as exc:  # sklearn's InvalidParameterError is a ValueError
+                m = re.match(r"The '(\w+)' parameter of \w+ must be (.*)\. Got (.*) instead\.", str(exc))
+                if m:
+                    bad(m.group(1), f"{m.group(1)} = {params.get(m.group(1), m.group(3))!r} is not allowed: "
+                                    f"it must be {m.group(2)}")
+                else:
+                    problems.append(f"{exp.where(f'learners.{name}')}: [learners.{name}] {str(exc).splitlines()[0]}")
+                continue
+        current = model.get_params(deep=False)
+        model.set_params(**{k: min(current[k], 2) for k in _SIZE_KEYS if isinstance(current.get(k), int)})
+        X, y = _dry_table(n_categorical)
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                fit_learner(learner, X, y, sample_weight=np.ones(len(y)))
+        except (ValueError, TypeError) as exc:
+            problems.append(f"{exp.where(f'learners.{name}')}: [learners.{name}] these settings cannot be "
+                            f"fitted: {str(exc).splitlines()[0]}")
+    if problems:
+        raise ConfigError("\n".join(problems) if len(problems) == 1 else
+                          f"{len(problems)} problems in the learner settings:\n" + "\n".join(problems))
+
+
+def _learner_factories(exp, categorical, seed, table):
+    """One learner factory per learner in use (settings checked by :func:`check_learner_settings`).
+
+    The random forest draws about two rows per site for each tree unless the
+    experiment sets ``max_samples`` (:func:`mlsites.learners.balanced_draws_share`).
+    """
+    from mlsites.learners import balanced_draws_share, make_learner
 
     factories = {}
     for name in exp["learners"]["use"]:
-        params = dict(exp["learners"]["settings"].get(name, {}))
-        for key, value in params.items():
-            if isinstance(value, list):  # TOML has no tuples (hidden_layer_sizes and the like)
-                params[key] = tuple(value)
-        factory = functools.partial(make_learner, name, random_state=seed,
-                                    categorical_features=tuple(categorical), **params)
-        factory()  # unknown settings fail here, before any work
-        factories[name] = factory
-    if not factories:
-        raise ConfigError(f"{exp.path}: [learners] use is empty; name at least one learner")
+        params = _learner_params(exp, name)
+        if name == "random_forest" and "max_samples" not in params:
+            n_sites = int(table.loc[table["label"] == 1, "site_id"].nunique())
+            params["max_samples"] = balanced_draws_share(table["weight"].to_numpy(), n_sites)
+        factories[name] = functools.partial(make_learner, name, random_state=seed,
+                                            categorical_features=tuple(categorical), **params)
     return factories
+
+
+#: Stages after the maps: (manifest name, module, function of a RunContext).
+_AFTER_MAPS = (
+    ("contributions", "mlsites.explain._in_run", "contributions_in_run"),
+    ("periods", "mlsites.periods._in_run", "periods_in_run"),
+    ("check", "mlsites.mapping._check", "check_in_run"),
+    ("report", "mlsites.report._in_run", "report_in_run"),
+)
+
+
+def _later_stage(ctx, stage, module, func):
+    """Run one later stage (see mlsites.experiment._stages); record what it returned."""
+    import importlib
+
+    run = getattr(importlib.import_module(module), func)
+    t0 = time.perf_counter()
+    out = run(ctx)
+    if out is not None:
+        ctx.results[stage] = out
+        seconds = time.perf_counter() - t0
+        ctx.log.stages[stage] = round(seconds, 2)
+        ctx.log(f"{stage}: done in {seconds:.1f} s")
 
 
 def _samples_only(run_dir: Path) -> bool:
@@ -330,17 +460,6 @@ def _reserve(target: Path, fresh: bool, what: str, name: str):
             f"{target}: the {what} of a run named {name!r} exists already; use --fresh to replace it "
             f"or --name NEW_NAME to keep it"
         )
-
-
-def _swap_into_place(staging: Path, target: Path):
-    """Rename ``staging`` to ``target``; an old ``target`` is removed only afterwards."""
-    old = None
-    if target.exists():
-        old = target.with_name(f".{target.name}.old-{os.getpid()}-{time.time_ns()}")
-        os.replace(target, old)
-    os.replace(staging, target)
-    if old is not None:
-        shutil.rmtree(old, ignore_errors=True)
 
 
 @contextlib.contextmanager
@@ -367,19 +486,20 @@ def _convergence_notes(log, what):
             "(or tol) in the learner's [learners.<name>] table")
 
 
-def _staging_dir(parent: Path, prefix: str) -> Path:
-    """A fresh hidden folder in ``parent`` with the usual permissions (mkdtemp gives 0700)."""
-    folder = Path(tempfile.mkdtemp(prefix=prefix, dir=parent))
-    umask = os.umask(0)
-    os.umask(umask)
-    folder.chmod(0o777 & ~umask)
-    return folder
-
-
 def _progress(total, desc, quiet):
     from tqdm.auto import tqdm
 
     return tqdm(total=total, desc=desc, unit="fit", disable=quiet, leave=False)
+
+
+def _map_card_entries(exp, result, features, hashes, cache_dir, quiet, log) -> dict:
+    """Per learner, the model-card entries a map needs: feature recipe and calibrated zones."""
+    from mlsites.experiment._recipe import feature_recipe, zone_calibration
+    from mlsites.experiment._samples import derive_layers
+
+    layers = derive_layers(exp, cache_dir, quiet=quiet, hashes=hashes)
+    recipe = feature_recipe(exp, layers, features, hashes, cache_folder=cache_dir)
+    return {n: {**recipe, "zones": zone_calibration(result.zones, n)} for n in result.summary["learner"]}
 
 
 def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_jobs=None) -> RunResult:
@@ -422,9 +542,12 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
     ``roc_curves.png``, ``dropped_records.csv``, ``sampling.json``, ``run.log`` and
     ``samples/`` (the sample table and folds every learner used). After
     cross-validation each learner is refitted on all samples and saved with
-    :func:`save_model`. The sample table is always read back from its parquet
-    file, so a cached and a fresh run feed the learners identical data and give
-    identical metrics files.
+    :func:`save_model`, its fold models beside it and, in the card, what a map
+    needs to rebuild its features and its calibrated zones; the learners chosen by
+    ``[maps] learners`` are then mapped into ``maps/LEARNER/``
+    (:func:`mlsites.mapping.map_model`). A table just built is used as it is in
+    memory, which equals its parquet file, so a cached and a fresh run feed the
+    learners identical data and give identical metrics files (tested).
     """
     import pandas as pd
 
@@ -452,24 +575,26 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
     with log.stage("checks"):
         grid = read_grid(exp["study"]["dem"])
         check_input_layers(exp, grid, log)
-    runs_dir.mkdir(parents=True, exist_ok=True)
-    models_root.mkdir(parents=True, exist_ok=True)
-    staging = _staging_dir(runs_dir, f".{name}.partial-")
-    model_staging = _staging_dir(models_root, f".{name}.partial-")
-    try:
+        check_learner_settings(exp)
+    cache_dir = runs_dir / ".cache"
+    with staged_folder(run_dir) as staging, staged_folder(models_dir) as model_staging:
         with log.stage("samples"):
-            hashes = input_hashes(exp)
-            folder, key, cached = _cached_samples(exp, runs_dir / ".cache", fresh=fresh, quiet=quiet, log=log,
-                                                  hashes=hashes)
-            shutil.copytree(folder, staging / "samples")
+            hashes = input_hashes(exp, memo_dir=cache_dir)
+            samples, key, cached = _cached_samples(exp, cache_dir, grid, fresh=fresh, quiet=quiet, log=log,
+                                                   hashes=hashes)
+            # The run keeps the files every learner used; cache files are never
+            # changed in place (every writer renames a new file over the old), so
+            # a hard link is as safe as a copy.
+            (staging / "samples").mkdir()
+            for p in _sample_files(samples.folder):
+                link_or_copy(p, staging / "samples" / p.name)
             for fname in _SAMPLE_REPORTS:
-                shutil.copy2(folder / fname, staging / fname)
-            samples = _load_sample_set(staging / "samples")
+                link_or_copy(samples.folder / fname, staging / fname)
             table, features, categorical = samples.table, samples.features, samples.categorical
             n_sites = int(table.loc[table["label"] == 1, "site_id"].nunique())
             log(f"samples: {int((table['label'] == 1).sum())} site cells of {n_sites} sites, "
                 f"{int((table['label'] == 0).sum())} background cells, {len(features)} features")
-        factories = _learner_factories(exp, categorical, seed)
+        factories = _learner_factories(exp, categorical, seed, table)
         ev = exp["evaluation"]
         splitter = None
         if exp["folds"]["method"] == "buffered_leave_one_out":
@@ -484,9 +609,18 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
                                         zone_targets=ev["zone_targets"], top_area_shares=tuple(ev["top_area_shares"]),
                                         n_jobs=n_jobs, progress=bar)
             write_crossval(result, staging)
+            folds = result.by_fold[(result.by_fold["fold"] != "all")
+                                   & (result.by_fold["learner"] == result.by_fold["learner"].iloc[0])]
+            if (folds["landscape"] == "within_buffer").any():
+                n_land = folds["n_test_background"]
+                log(f"landscape of each held-out site: the background within buffer_m = "
+                    f"{exp['folds']['buffer_m']:g} m of it, never seen by its fold's model "
+                    f"(median {n_land.median():.0f} cells, fewest {n_land.min()})")
             best = result.summary.iloc[0]
             log(f"best learner by mean fold AUC: {best['learner']} ({best['auc_mean']:.3f})")
         with log.stage("models"), _convergence_notes(log, "refit"):
+            # what a map needs to rebuild the features (layer files, settings, zones)
+            card_extras = _map_card_entries(exp, result, features, hashes, runs_dir / ".cache", quiet, log)
             data_hash = file_digest(staging / "samples" / "samples.parquet")
             X, y, w = table[features], table["label"].to_numpy(), table["weight"].to_numpy()
             rows = result.summary.set_index("learner")
@@ -501,9 +635,27 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
                                          "params": exp["learners"]["settings"].get(lname, {})},
                                metrics=rows.loc[lname].to_dict() if lname in rows.index else {},
                                extra={"experiment": exp.name, "run": name,
-                                      "n_samples": int(len(table)), "n_sites": n_sites})
+                                      "n_samples": int(len(table)), "n_sites": n_sites, **card_extras[lname],
+                                      # the table the area of applicability of a map is fitted on
+                                      "training_table": {"path": str(run_dir / "samples" / "samples.parquet"),
+                                                         "sha256": data_hash}},
+                               fold_estimators=result.fold_models.get(lname, ()))
                     bar.update(1)
                     log(f"model {lname}: fitted on all {len(table)} samples in {time.perf_counter() - t0:.1f} s")
+        ctx = RunContext(exp=exp, name=name, run_dir=run_dir, models_dir=models_dir, staging=staging,
+                         model_staging=model_staging, table=table, features=features, categorical=categorical,
+                         grid=grid, crossval=result, factories=factories, splitter=splitter, seed=seed,
+                         n_jobs=n_jobs, quiet=quiet, log=log)
+        _later_stage(ctx, "explain", "mlsites.explain._in_run", "explain_in_run")
+        with log.stage("maps"):
+            from mlsites.mapping._run_maps import map_run_models
+
+            ctx.maps = map_run_models(exp["maps"]["learners"], list(result.summary["learner"]), model_staging,
+                                      staging / "maps", final_model_dir=models_dir,
+                                      training_table=staging / "samples" / "samples.parquet", n_jobs=n_jobs,
+                                      quiet=quiet, log=log)
+        for stage, module, func in _AFTER_MAPS:
+            _later_stage(ctx, stage, module, func)
         log(f"run {name}: done in {time.perf_counter() - t_start:.1f} s")
         manifest = {
             "run": name, "experiment": exp.name, "experiment_file": str(exp.path),
@@ -514,16 +666,12 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
             "started_utc": started.isoformat(timespec="seconds"),
             "finished_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
             "run_dir": str(run_dir), "models_dir": str(models_dir), "learners": list(factories),
+            "maps": sorted(ctx.maps), "stages": ctx.results,
         }
         (staging / "manifest.json").write_text(json.dumps(manifest, indent=2, default=str) + "\n")
         (staging / "run.log").write_text("\n".join(log.lines) + "\n")
         # A run that appeared meanwhile (another process) is not replaced without fresh.
         _reserve(run_dir, fresh, "output folder", name)
         _reserve(models_dir, fresh, "model folder", name)
-        _swap_into_place(model_staging, models_dir)
-        _swap_into_place(staging, run_dir)
-    finally:
-        shutil.rmtree(staging, ignore_errors=True)
-        shutil.rmtree(model_staging, ignore_errors=True)
     summary = pd.read_csv(run_dir / "metrics_summary.csv")
     return RunResult(name=name, run_dir=run_dir, models_dir=models_dir, summary=summary, manifest=manifest)

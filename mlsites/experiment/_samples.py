@@ -9,9 +9,8 @@ table and folds, so comparisons are fair by construction.
 from __future__ import annotations
 
 import json
-import os
+import re
 import shutil
-import tempfile
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -20,13 +19,19 @@ import numpy as np
 import pandas as pd
 
 from mlsites import __version__
+from mlsites._files import staged_folder
 from mlsites.errors import InputError, InsufficientDataError, OutputExistsError
-from mlsites.experiment._hashing import input_hashes, settings_digest
+from mlsites.experiment._hashing import entry_digest, input_hashes, settings_digest
 
-__all__ = ["SampleSet", "derive_layers", "prepare_samples", "buffered_splitter", "FEATURE_EXCLUDED"]
+__all__ = ["SampleSet", "derive_layers", "cached_terrain", "terrain_features", "terrain_settings",
+           "prepare_samples", "buffered_splitter", "check_redundant_features", "FEATURE_EXCLUDED"]
 
 #: Terrain outputs that are not used as model features (codes, circular or redundant).
 FEATURE_EXCLUDED = {"aspect", "flow_direction", "filled_dem", "streams", "flow_accumulation"}
+#: Terrain outputs that are affine copies of another layer over the study area
+#: (``tpi_<R>m_std`` = (``tpi_<R>m`` - mean) / sd): written as layers, not used as
+#: features, since they would enter the learners twice.
+_STANDARDISED = re.compile(r"^(tpi_.+m)_std$")
 SAMPLE_COLUMNS = ["sample_id", "label", "weight", "site_id", "fold", "x", "y", "row", "col"]
 
 
@@ -47,18 +52,12 @@ class SampleSet:
     summary: dict
 
 
-def derive_layers(exp, cache_dir, *, fresh=False, quiet=False, log=None, hashes=None) -> dict:
-    """Terrain and distance layers of an experiment, computed once and cached.
-
-    Returns a dict layer name -> (path, kind). The cache folder's name is a hash of
-    the DEM bytes, the vector files and the terrain settings, so a second run reuses
-    it and any change recomputes it; ``fresh`` recomputes regardless. ``hashes``
-    (from :func:`input_hashes`) saves hashing the inputs again.
-    """
-    from mlsites.terrain import TerrainSettings, compute_terrain
+def terrain_settings(exp):
+    """The :class:`~mlsites.terrain.TerrainSettings` of an experiment's ``[terrain]`` and ``[distances]``."""
+    from mlsites.terrain import TerrainSettings
 
     t = exp["terrain"]
-    settings = TerrainSettings(
+    return TerrainSettings(
         layers=tuple(t["layers"]),
         tpi_radii_m=tuple(float(r) for r in t["tpi_radii_m"]),
         landform_lookup_cells=t["landform_lookup_cells"],
@@ -67,26 +66,110 @@ def derive_layers(exp, cache_dir, *, fresh=False, quiet=False, log=None, hashes=
         vectors=dict(exp["distances"]),
         stream_vector=t["stream_lines"],
     )
-    hashes = input_hashes(exp) if hashes is None else hashes
+
+
+def cached_terrain(dem, settings, cache_dir, *, dem_sha256, vector_sha256, stream_sha256=None, fresh=False,
+                   quiet=False, log=None) -> tuple[Path, dict]:
+    """Terrain and distance layers of one DEM, computed once into a cache folder.
+
+    Parameters
+    ----------
+    dem : path-like
+    settings : TerrainSettings
+    cache_dir : path-like
+        Parent of the cache folders (``terrain-<key>``).
+    dem_sha256, vector_sha256, stream_sha256 : str, dict of str to str, str or None
+        Hashes of the DEM, of each distance vector layer and of the stream lines;
+        with the settings and the version they make the folder's key.
+    fresh : bool
+        Recompute even when cached.
+
+    Returns
+    -------
+    (Path, dict)
+        The folder and its ``terrain.json`` summary.
+    """
+    from mlsites.terrain import compute_terrain
+
     key = {
-        "dem": hashes["study.dem"]["sha256"],
-        "vectors": {n: hashes[f"distances.{n}"]["sha256"] for n in exp["distances"]},
-        "stream_lines": hashes["terrain.stream_lines"]["sha256"] if t["stream_lines"] else None,
+        "dem": dem_sha256,
+        "vectors": {n: vector_sha256[n] for n in settings.vectors},
+        "stream_lines": stream_sha256 if settings.stream_vector else None,
         "settings": settings.__dict__, "version": __version__,
     }
     folder = Path(cache_dir) / f"terrain-{settings_digest(key)[:16]}"
     if fresh and folder.exists():
         shutil.rmtree(folder)
     if not (folder / "terrain.json").exists():
-        compute_terrain(exp["study"]["dem"], folder, settings, overwrite=True, quiet=quiet, log=log)
+        compute_terrain(dem, folder, settings, overwrite=True, quiet=quiet, log=log)
     elif log:
         log(f"terrain layers: cached in {folder.name}")
-    summary = json.loads((folder / "terrain.json").read_text())
-    layers = {n: (folder / info["file"], "categorical" if n == "landform" else "continuous")
-              for n, info in summary["layers"].items() if n not in FEATURE_EXCLUDED}
+    return folder, json.loads((folder / "terrain.json").read_text())
+
+
+def terrain_features(folder, summary) -> dict:
+    """Feature layers of a terrain cache folder: name -> (path, kind), excluded layers left out."""
+    return {n: (Path(folder) / info["file"], "categorical" if n == "landform" else "continuous")
+            for n, info in summary["layers"].items() if _is_feature(n, summary["layers"])}
+
+
+def derive_layers(exp, cache_dir, *, fresh=False, quiet=False, log=None, hashes=None) -> dict:
+    """Terrain and distance layers of an experiment, computed once and cached.
+
+    Returns a dict layer name -> (path, kind). The cache folder's name is a hash of
+    the DEM bytes, the vector files and the terrain settings, so a second run reuses
+    it and any change recomputes it; ``fresh`` recomputes regardless. ``hashes``
+    (from :func:`input_hashes`) saves hashing the inputs again.
+    """
+    settings = terrain_settings(exp)
+    hashes = input_hashes(exp) if hashes is None else hashes
+    folder, summary = cached_terrain(
+        exp["study"]["dem"], settings, cache_dir, dem_sha256=entry_digest(hashes["study.dem"]),
+        vector_sha256={n: entry_digest(hashes[f"distances.{n}"]) for n in exp["distances"]},
+        stream_sha256=entry_digest(hashes["terrain.stream_lines"]) if settings.stream_vector else None,
+        fresh=fresh, quiet=quiet, log=log)
+    layers = terrain_features(folder, summary)
     for n, spec in exp["inputs"].items():
         layers[n] = (Path(spec["path"]), spec["kind"])
     return layers
+
+
+def _is_feature(name, all_layers) -> bool:
+    """Whether a terrain output enters the learners (not excluded, not a standardised copy)."""
+    if name in FEATURE_EXCLUDED:
+        return False
+    copy_of = _STANDARDISED.match(name)
+    return not (copy_of and copy_of.group(1) in all_layers)
+
+
+def check_redundant_features(exp, layers, grid, log=None):
+    """Refuse features that copy each other over the study area (|Spearman rho| > 0.99).
+
+    ``layers`` maps name -> (path, kind), as from :func:`derive_layers`. The layers
+    are read on a regular lattice of the study grid (:func:`redundant_layer_pairs`);
+    categorical layers are not compared.
+
+    Raises
+    ------
+    InputError
+        Naming both layers of every such pair, rho and what to do.
+    """
+    from mlsites.sampling import redundant_layer_pairs
+
+    pairs = redundant_layer_pairs({n: p for n, (p, _) in layers.items()}, grid,
+                                  kinds={n: k for n, (_, k) in layers.items()})
+    if log:
+        log(f"feature layers compared on a lattice of {pairs.attrs['n_cells']} study-area cells (one in "
+            f"{pairs.attrs['step']} along rows and columns): {len(pairs)} pair(s) with |Spearman rho| > 0.99")
+    if len(pairs):
+        found = "; ".join(f"{r.first} and {r.second} (Spearman rho = {r.spearman:.4f})"
+                          for r in pairs.itertuples())
+        raise InputError(
+            f"{exp.path}: feature layers copy each other over the study area: {found}, on a lattice of "
+            f"{pairs.attrs['n_cells']} cells; |rho| above 0.99 makes the pair collinear for logistic "
+            "regression and counts it twice in the fuzzy baseline. Remove one layer of each pair from "
+            "[terrain] layers, [inputs] or [distances]"
+        )
 
 
 def buffered_splitter(exp, table, grid):
@@ -152,7 +235,39 @@ def _assign_folds(exp, table, features, categorical, grid, rng_seed, log):
     return np.asarray(fold, dtype=np.int64), blocks, info
 
 
-def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, log=None,
+def _sites_outside_survey(pres, sa, grid, log):
+    """Count the sites none of whose cells is surveyed (``survey_mode = "inside"``); drop them if asked.
+
+    Returns the presence cells (without the dropped sites) and the dropped site ids.
+    """
+    import warnings
+
+    from mlsites.errors import DataQualityWarning
+    from mlsites.sampling import in_survey
+
+    if not sa["survey_areas"] or sa["survey_mode"] != "inside":
+        return pres, []
+    inside = pd.Series(in_survey(pres["x"].to_numpy(), pres["y"].to_numpy(), grid, sa["survey_areas"]))
+    per_site = inside.groupby(pres["site_id"].to_numpy(), sort=False).any()
+    outside = [str(sid) for sid in per_site.index[~per_site.to_numpy()]]
+    if not outside:
+        return pres, []
+    shown = ", ".join(outside[:5]) + (", ..." if len(outside) > 5 else "")
+    msg = (f"{len(outside)} of {len(per_site)} sites lie outside the survey areas ({shown}): with "
+           f"survey_mode = \"inside\" no background is drawn where they are, so the model cannot compare "
+           f"them with their surroundings")
+    if sa["drop_unsurveyed_sites"]:
+        msg += "; dropped (drop_unsurveyed_sites = true) and listed in dropped_records.csv"
+        pres = pres[~pres["site_id"].isin(outside)].reset_index(drop=True)
+    else:
+        msg += "; kept. Set drop_unsurveyed_sites = true in [sampling] to leave them out"
+        outside = []
+    warnings.warn(msg, DataQualityWarning, stacklevel=3)
+    log(msg)
+    return pres, outside
+
+
+def prepare_samples(exp, out_dir, *, grid=None, cache_dir=None, fresh=False, quiet=False, log=None,
                     hashes=None) -> SampleSet:
     """Build and write the sample table and folds of an experiment.
 
@@ -161,6 +276,8 @@ def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, l
     exp : Experiment
     out_dir : path-like
         Folder for the sample files; must not hold them already unless ``fresh``.
+    grid : GridSpec, optional
+        The study grid, when the caller has read it from the DEM already.
     cache_dir : path-like, optional
         Where derived terrain layers are cached (default ``out_dir/../cache``).
     fresh : bool
@@ -171,25 +288,27 @@ def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, l
     Returns
     -------
     SampleSet
+        The table in memory, equal to what was written to ``samples.parquet``.
 
     Notes
     -----
-    Presence weights are ``1 / n_cells`` per site (each site counts once); the
-    background weights are balanced so their total equals the total presence
-    weight (METHODS.md §7). Samples whose cells lack a value in some layer (edges
+    Weights come from :func:`mlsites.sampling.sample_weights`: the cells of a site
+    share equal parts of one site's weight (each site counts once), all background
+    together weighs as much as all sites (METHODS.md §7), and the weights are scaled
+    to average 1, so learner settings mean the same whatever the study size. Samples whose cells lack a value in some layer (edges
     of neighbourhood layers, holes in an input raster) are removed and counted by
     layer; a site that loses all its cells is listed in ``dropped_records.csv``
     with the reason, and the weights of partly affected sites are renormalised.
     """
     from mlsites.grid import read_grid
     from mlsites.sampling import (
-        balance_weights,
         check_n_splits,
         extract_values,
         presence_cells,
         read_sites,
         read_valid_mask,
         sample_background,
+        sample_weights,
     )
 
     log = log or (lambda m: None)
@@ -199,9 +318,10 @@ def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, l
     seed = exp["study"]["seed"]
     t0 = time.perf_counter()
     dem = exp["study"]["dem"]
-    grid = read_grid(dem)
+    grid = read_grid(dem) if grid is None else grid
     layers = derive_layers(exp, cache_dir or out_dir.parent / "cache", fresh=fresh, quiet=quiet, log=log,
                            hashes=hashes)
+    check_redundant_features(exp, layers, grid, log)
     valid = read_valid_mask(dem, grid)
     s = exp["sites"]
     if not s["path"]:
@@ -215,21 +335,30 @@ def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, l
     sa = exp["sampling"]
     pres = presence_cells(records, grid, buffer_m=sa["site_buffer_m"], valid_mask=valid,
                           one_cell_per_site=sa["one_cell_per_site"], random_state=seed)
+    pres, unsurveyed = _sites_outside_survey(pres, sa, grid, log)
     bg = sample_background(grid, n=None if sa["background_fraction"] else sa["background_count"],
                            fraction=sa["background_fraction"], valid_mask=valid, exclude_sites=records,
                            exclusion_m=sa["exclusion_m"], survey=sa["survey_areas"],
                            survey_mode=sa["survey_mode"], effort_field=sa["effort_field"], random_state=seed)
     del valid
+    if sa["exclusion_m"] > 0:
+        log(f"exclusion_m = {sa['exclusion_m']:g} m: no background within that distance of a site, so the "
+            "background are pseudo-absences (not what was available to be found), and each fold's "
+            "held-out landscape lacks the cells near sites; set exclusion_m = 0 for presence-background")
     table = pd.concat([pres.assign(label=1), bg.assign(label=0, site_id="")], ignore_index=True)
     names = list(layers)
     values = extract_values({n: p for n, (p, _) in layers.items()}, table["row"].to_numpy(),
-                            table["col"].to_numpy(), grid, kinds={n: k for n, (_, k) in layers.items()})
+                            table["col"].to_numpy(), grid, kinds={n: k for n, (_, k) in layers.items()},
+                            bands={n: spec["band"] for n, spec in exp["inputs"].items()})
     table = pd.concat([table, values], axis=1)
     dropped_rows = [{"source_row": r, "site_id": i, "reason": why}
                     for r, i, why in zip(records.dropped["source_row"], records.dropped["site_id"],
                                          records.dropped["reason"])]
     dropped_rows += [{"source_row": None, "site_id": d["site_id"], "reason": d["reason"]}
                      for d in pres.attrs.get("dropped", [])]
+    source_row = dict(zip(records.sites["site_id"], records.sites["source_row"]))
+    dropped_rows += [{"source_row": source_row.get(sid), "site_id": sid,
+                      "reason": "outside the survey areas (drop_unsurveyed_sites = true)"} for sid in unsurveyed]
     missing = table[names].isna()
     counts = {"presence_cells_missing_values": int(missing.any(axis=1)[table["label"] == 1].sum()),
               "background_cells_missing_values": int(missing.any(axis=1)[table["label"] == 0].sum()),
@@ -245,11 +374,10 @@ def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, l
             f"({', '.join(f'{k}: {v}' for k, v in counts['missing_by_layer'].items())})")
     check_n_splits(len(after), exp["folds"]["n_splits"], source=str(s["path"]))
     pmask = table["label"] == 1
-    table.loc[pmask, "weight"] = 1.0 / table[pmask].groupby("site_id")["site_id"].transform("size")
     n_bg = int((~pmask).sum())
     if n_bg == 0:
         raise InsufficientDataError("no background cell has values in every layer; check the input layers")
-    table.loc[~pmask, "weight"] = balance_weights(float(table.loc[pmask, "weight"].sum()), n_bg)
+    table["weight"] = sample_weights(table["label"].to_numpy(), table["site_id"].to_numpy())
     categorical = [n for n, (_, k) in layers.items() if k == "categorical"]
     fold, blocks, fold_info = _assign_folds(exp, table, names, categorical, grid, seed, log)
     table["fold"] = fold
@@ -273,10 +401,7 @@ def prepare_samples(exp, out_dir, *, cache_dir=None, fresh=False, quiet=False, l
 def _write_outputs(out_dir: Path, table, blocks, dropped, summary):
     from mlsites.folds import write_folds
 
-    out_dir.mkdir(parents=True, exist_ok=True)
-    staging = Path(tempfile.mkdtemp(prefix=".samples-partial-", dir=out_dir))
-    try:
-        table.to_parquet(staging / "samples.parquet", index=False)
+    with staged_folder(out_dir, files=SAMPLE_FILES) as staging:
         if (table["fold"] >= 0).all():
             write_folds(staging, table["sample_id"], table["fold"], blocks, meta=summary["folds"])
         else:
@@ -285,25 +410,10 @@ def _write_outputs(out_dir: Path, table, blocks, dropped, summary):
             table[["sample_id", "fold"]].to_csv(staging / "folds.csv", index=False)
         dropped.to_csv(staging / "dropped_records.csv", index=False)
         (staging / "sampling.json").write_text(json.dumps(summary, indent=2, default=str))
-        publish_samples(staging, out_dir)
-    finally:
-        shutil.rmtree(staging, ignore_errors=True)
+        table.to_parquet(staging / "samples.parquet", index=False)
 
 
 #: Files a sample folder may hold; blocks and fold metadata only for block folds.
-SAMPLE_FILES = ("samples.parquet", "folds.csv", "blocks.gpkg", "folds_meta.json", "dropped_records.csv",
-                "sampling.json")
-
-
-def publish_samples(staging: Path, out_dir: Path):
-    """Move the sample files of ``staging`` into ``out_dir``, removing stale ones.
-
-    A file an earlier table had but this one has not (blocks of a block method
-    after a switch to random folds) is removed first, so the folder never mixes two
-    tables.
-    """
-    for name in SAMPLE_FILES:
-        if not (staging / name).exists():
-            (out_dir / name).unlink(missing_ok=True)
-    for p in staging.iterdir():
-        os.replace(p, out_dir / p.name)
+#: The table comes last: a folder with ``samples.parquet`` is complete.
+SAMPLE_FILES = ("folds.csv", "blocks.gpkg", "folds_meta.json", "dropped_records.csv", "sampling.json",
+                "samples.parquet")

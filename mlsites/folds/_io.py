@@ -12,7 +12,6 @@ A fold directory holds
 """
 
 import json
-import os
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
@@ -20,6 +19,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from mlsites._files import staged_folder
 from mlsites.errors import (
     DataQualityWarning,
     InputError,
@@ -33,7 +33,6 @@ FOLDS_CSV = "folds.csv"
 BLOCKS_GPKG = "blocks.gpkg"
 BLOCKS_LAYER = "blocks"
 META_JSON = "folds_meta.json"
-_PARTIAL = ".partial"
 
 
 @dataclass(frozen=True)
@@ -128,13 +127,12 @@ def write_folds(path_dir, sample_id, fold, blocks=None, meta=None, *, overwrite=
 
     Notes
     -----
-    Every file is first written under a temporary name marked ``.partial``
-    (``blocks.partial.gpkg``, ``folds.csv.partial``, ...) in the same directory
-    and then moved into place with :func:`os.replace` (atomic on one file
-    system). An old ``folds.csv`` is deleted before and the new one
-    moved in last, so a directory with a ``folds.csv`` always has the matching
-    blocks and metadata. An old ``blocks.gpkg`` is removed when the new assignment
-    has no blocks.
+    Every file is first written in a hidden staging folder inside ``path_dir``
+    and then moved into place (:func:`mlsites._files.staged_folder`; each move
+    is atomic on one file system). An old ``folds.csv`` is deleted before and
+    the new one moved in last, so a directory with a ``folds.csv`` always has
+    the matching blocks and metadata. An old ``blocks.gpkg`` is removed when
+    the new assignment has no blocks.
     """
     path_dir = Path(path_dir)
     target = path_dir / FOLDS_CSV
@@ -159,34 +157,13 @@ def write_folds(path_dir, sample_id, fold, blocks=None, meta=None, *, overwrite=
             )
     meta = dict(meta or {})
     meta.update(n_samples=int(fold.size), n_splits=int(fold.max()) + 1)
-    path_dir.mkdir(parents=True, exist_ok=True)
-
-    staged = []
-    try:
-        tmp = path_dir / (META_JSON + _PARTIAL)
-        tmp.write_text(json.dumps(meta, indent=2, sort_keys=True, default=str) + "\n")
-        staged.append((tmp, path_dir / META_JSON))
+    # folds.csv last: a folder with a folds.csv always has the matching blocks and
+    # metadata; an old blocks.gpkg goes when the new assignment has none.
+    with staged_folder(path_dir, files=(META_JSON, BLOCKS_GPKG, FOLDS_CSV)) as staging:
+        (staging / META_JSON).write_text(json.dumps(meta, indent=2, sort_keys=True, default=str) + "\n")
         if blocks is not None:
-            # the GPKG driver wants a .gpkg extension, so the suffix goes before it
-            tmp = path_dir / f"blocks{_PARTIAL}.gpkg"
-            if tmp.exists():
-                tmp.unlink()
-            blocks.to_file(tmp, layer=BLOCKS_LAYER, driver="GPKG")
-            staged.append((tmp, path_dir / BLOCKS_GPKG))
-        tmp = path_dir / (FOLDS_CSV + _PARTIAL)
-        pd.DataFrame({"sample_id": ids.to_numpy(), "fold": fold}).to_csv(tmp, index=False)
-        staged.append((tmp, target))
-    except BaseException:
-        for tmp, _ in staged:
-            tmp.unlink(missing_ok=True)
-        raise
-    # Remove the old folds.csv first: an interrupted rewrite then leaves no
-    # folds.csv rather than one that disagrees with its blocks and metadata.
-    target.unlink(missing_ok=True)
-    if blocks is None:
-        (path_dir / BLOCKS_GPKG).unlink(missing_ok=True)
-    for tmp, final in staged:
-        os.replace(tmp, final)
+            blocks.to_file(staging / BLOCKS_GPKG, layer=BLOCKS_LAYER, driver="GPKG")
+        pd.DataFrame({"sample_id": ids.to_numpy(), "fold": fold}).to_csv(staging / FOLDS_CSV, index=False)
     return target
 
 

@@ -238,7 +238,7 @@ class SpatialBlockFolds(_BaseFolds):
     def describe(self):
         """JSON-ready description of the method and its parameters (for fold files)."""
         return {
-            "method": "spatial_blocks",
+            "method": f"{self.kind}_blocks",
             "kind": self.kind,
             "block_size_m": float(self.block_size),
             "origin": [float(v) for v in self.origin],
@@ -365,7 +365,7 @@ class BufferedLeaveOneSiteOut(_BaseFolds):
     def describe(self):
         """JSON-ready description of the method and its parameters."""
         return {
-            "method": "buffered_leave_one_site_out",
+            "method": "buffered_leave_one_out",
             "buffer_m": float(self.buffer),
             "background_in_test": bool(self.background_in_test),
         }
@@ -475,7 +475,7 @@ class EnvironmentalFolds(_BaseFolds):
     def describe(self):
         """JSON-ready description of the method and its parameters."""
         return {
-            "method": "environmental_kmeans",
+            "method": "environmental",
             "n_splits": int(self.n_splits),
             "n_init": int(self.n_init),
             "random_state": self.random_state if isinstance(self.random_state, int) else None,

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import contextlib
 import functools
+import numbers
 import os
 import queue
 import threading
@@ -25,6 +26,7 @@ from rasterio.enums import MaskFlags, Resampling
 from rasterio.vrt import WarpedVRT
 from rasterio.windows import Window
 
+from mlsites._validation import gdal_reason
 from mlsites.errors import CRSError, InputError, RasterReadError
 from mlsites.grid._spec import GridSpec
 
@@ -73,7 +75,7 @@ def open_raster(path):
         return rasterio.open(path)
     except rasterio.errors.RasterioIOError as exc:
         raise RasterReadError(
-            f"{path}: not a raster GDAL can read ({str(exc).splitlines()[0]}); "
+            f"{path}: not a raster GDAL can read ({gdal_reason(exc)}); "
             "give a GeoTIFF or another GDAL raster format"
         ) from None
 
@@ -123,10 +125,12 @@ class AlignedRaster(contextlib.AbstractContextManager):
         self.grid = grid
         self.kind = kind
         self._src = open_raster(path)
-        if band < 1 or band > self._src.count:
+        if isinstance(band, bool) or not isinstance(band, numbers.Integral) or not 1 <= band <= self._src.count:
+            count = self._src.count
             self._src.close()
-            raise InputError(f"{path}: band {band} requested, the raster has {self._src.count}")
-        self.band = band
+            raise InputError(f"{path}: band {band!r} asked for, but the raster has {count} band(s); "
+                             f"give a band from 1 to {count}")
+        self.band = int(band)
         self.nodata = self._src.nodata
         self.reprojected = not grid.matches(self._src.crs, self._src.transform,
                                             (self._src.height, self._src.width))

@@ -70,6 +70,19 @@ class GridSpec:
         left, top = self.transform.c, self.transform.f
         return (left, top - self.height * self.res[1], left + self.width * self.res[0], top)
 
+    def extent_text(self, bounds=None) -> str:
+        """``bounds`` (default the grid's own, in the grid CRS) as plain numbers for messages.
+
+        Projected grids in whole CRS units ("x 400000..401200 m"), degree grids to
+        six decimals; never scientific notation, so the numbers can be compared
+        with what a GIS shows.
+        """
+        left, bottom, right, top = self.bounds if bounds is None else bounds
+        if self.is_geographic:
+            return f"lon {left:.6f}..{right:.6f}, lat {bottom:.6f}..{top:.6f} degrees"
+        unit = "m" if self._linear_unit_m() == 1.0 else (self.crs.linear_units if self.crs else "units")
+        return f"x {left:.0f}..{right:.0f}, y {bottom:.0f}..{top:.0f} {unit}"
+
     @property
     def is_geographic(self) -> bool:
         """True when the CRS is in degrees (latitude/longitude)."""

@@ -2,10 +2,11 @@
 
 Each layer gets a membership function whose control points are percentiles of the
 layer's values at known sites; the memberships are combined by a fuzzy operator
-(AND, OR, algebraic product or sum, or the gamma operator). Nothing is learned
-beyond those percentiles (and, for categorical layers, the share of sites per
-category), so the model is a transparent reference for the machine-learning
-presets in :mod:`mlsites.learners`.
+(minimum, maximum, algebraic product or sum, or the gamma operator of Zimmermann &
+Zysno 1980). Nothing is learned beyond those percentiles, the relative site density
+of each class of a categorical layer and, for the gamma operator, one exponent, so
+the model is a transparent reference for the machine-learning presets in
+:mod:`mlsites.learners`.
 """
 
 from numbers import Integral, Real
@@ -19,7 +20,17 @@ from sklearn.utils.validation import check_is_fitted, validate_data
 from mlsites.errors import InputError, InsufficientDataError
 
 _SHAPES = ("linear", "cosine")
-_OPERATORS = ("and", "or", "product", "sum", "gamma")
+_OPERATORS = ("minimum", "maximum", "algebraic_product", "algebraic_sum", "gamma_operator")
+#: Defaults of FuzzySuitability, chosen by spatially cross-validated AUC on virtual
+#: sites (tests/benchmarks/fuzzy_defaults.py).
+DEFAULT_PERCENTILES = (20, 40, 60, 80)
+DEFAULT_MEMBERSHIP_FLOOR = 0.2
+#: Exponents tried when the gamma operator's gamma is chosen in ``fit``.
+GAMMA_GRID = np.round(np.linspace(0.0, 1.0, 21), 2)
+#: Training AUCs closer than this to the best count as ties; the smallest gamma
+#: among them is kept (with a dozen layers FAS is near 1 almost everywhere, so the
+#: AUC barely moves with gamma and the exact maximum would be chance).
+GAMMA_AUC_TOLERANCE = 1e-3
 _DIRECTIONS = ("increasing", "decreasing")
 
 
@@ -165,20 +176,20 @@ def fuzzy_membership(x, control_points, *, shape="linear"):
     return mu
 
 
-def fuzzy_combine(memberships, *, operator="and", gamma=0.9):
+def fuzzy_combine(memberships, *, operator, gamma=None):
     """Combine layer memberships with a fuzzy operator.
 
     Parameters
     ----------
     memberships : array_like of shape (n_samples, n_layers) or (n_layers,)
         Memberships in [0, 1]; a 1-D input is one location.
-    operator : {"and", "or", "product", "sum", "gamma"}, default "and"
-        "and" = min, "or" = max, "product" = algebraic product
-        FAP = prod(mu), "sum" = algebraic sum FAS = 1 - prod(1 - mu), "gamma" =
-        FAS**gamma * FAP**(1 - gamma).
-    gamma : float in [0, 1], default 0.9
-        Exponent of the gamma operator (ignored otherwise); 0 gives the product and
-        1 the algebraic sum.
+    operator : {"minimum", "maximum", "algebraic_product", "algebraic_sum", "gamma_operator"}
+        "minimum" = min(mu) (fuzzy AND), "maximum" = max(mu) (fuzzy OR),
+        "algebraic_product" FAP = prod(mu), "algebraic_sum" FAS = 1 - prod(1 - mu),
+        "gamma_operator" = FAS**gamma * FAP**(1 - gamma) (Zimmermann & Zysno 1980).
+    gamma : float in [0, 1], optional
+        Exponent of the gamma operator, required for it and ignored otherwise; 0
+        gives the product and 1 the algebraic sum.
 
     Returns
     -------
@@ -188,13 +199,15 @@ def fuzzy_combine(memberships, *, operator="and", gamma=0.9):
     Raises
     ------
     InputError
-        If the operator is unknown, gamma is outside [0, 1], there are no layers, or
-        a membership lies outside [0, 1].
+        If the operator is unknown, gamma is missing or outside [0, 1], there are
+        no layers, or a membership lies outside [0, 1].
 
     Notes
     -----
     0**0 is taken as 1, so gamma = 0 or 1 reproduces FAP or FAS exactly even where
-    the other term is 0.
+    the other term is 0. Any zero membership makes FAP, and hence the gamma
+    operator for gamma < 1, zero: memberships that never reach 0 (see
+    ``membership_floor`` of :class:`FuzzySuitability`) keep cells apart.
 
     References
     ----------
@@ -204,13 +217,13 @@ def fuzzy_combine(memberships, *, operator="and", gamma=0.9):
 
     Examples
     --------
-    >>> round(float(fuzzy_combine([0.8, 0.2], operator="gamma", gamma=0.5)), 6)
+    >>> round(float(fuzzy_combine([0.8, 0.2], operator="gamma_operator", gamma=0.5)), 6)
     0.366606
     """
     if operator not in _OPERATORS:
         raise InputError(f"Unknown fuzzy operator {operator!r}; use one of {_OPERATORS}.")
-    if not isinstance(gamma, Real) or not 0.0 <= gamma <= 1.0:
-        raise InputError(f"gamma must be a number in [0, 1]; got {gamma!r}.")
+    if operator == "gamma_operator":
+        _check_gamma(gamma, allow_none=False)
     mu = np.asarray(memberships, dtype=float)
     one_location = mu.ndim == 1
     mu = np.atleast_2d(mu)
@@ -221,38 +234,103 @@ def fuzzy_combine(memberships, *, operator="and", gamma=0.9):
         )
     if np.any((mu < 0) | (mu > 1)):
         raise InputError("Memberships must lie in [0, 1]; got values outside that range.")
-    if operator == "and":
+    if operator == "minimum":
         out = mu.min(axis=1)
-    elif operator == "or":
+    elif operator == "maximum":
         out = mu.max(axis=1)
     else:
         fap = np.prod(mu, axis=1)
         fas = 1.0 - np.prod(1.0 - mu, axis=1)
-        out = {"product": fap, "sum": fas}.get(operator)
+        out = {"algebraic_product": fap, "algebraic_sum": fas}.get(operator)
         if out is None:
             out = fas**gamma * fap ** (1.0 - gamma)
     return out[0] if one_location else out
 
 
-class FuzzySuitability(ClassifierMixin, BaseEstimator):
-    """Percentile-fuzzy suitability model, the training-free baseline.
+def _check_gamma(gamma, *, allow_none):
+    if gamma is None and allow_none:
+        return
+    if isinstance(gamma, bool) or not isinstance(gamma, Real) or not 0.0 <= gamma <= 1.0:
+        raise InputError(
+            f"gamma must be a number in [0, 1]{' or left out (chosen in fit)' if allow_none else ''}; "
+            f"got {gamma!r}."
+        )
 
-    For each numeric layer, four control points a <= b <= c <= d are the chosen
-    percentiles of the layer at known sites; the membership function (see
-    :func:`fuzzy_membership`) gives 1 where a value is typical of sites and falls to 0
-    towards the extremes. Layer memberships are combined by a fuzzy operator (see
-    :func:`fuzzy_combine`), and the result mu is the suitability.
+
+def category_memberships(site_values, background_values, *, site_weight=None, background_weight=None):
+    """Membership of each class: relative site density, scaled so the densest class is 1.
 
     Parameters
     ----------
-    percentiles : sequence of 4 float, default (5, 25, 75, 95)
+    site_values, background_values : array_like
+        Class codes at the site and background rows.
+    site_weight, background_weight : array_like, optional
+        Non-negative row weights (equal when omitted).
+
+    Returns
+    -------
+    dict
+        Class -> membership in [0, 1], for every class met at a site; classes met
+        only in the background are 0 (unseen classes are 0 at prediction as well).
+
+    Notes
+    -----
+    For class k, with s_k the share of site weight and a_k the share of background
+    weight in it, the relative site density is r_k = s_k / a_k (1 = as common among
+    sites as in the landscape) and the membership r_k / max_j r_j. A class the
+    background never met gets a_k = half the weight of one background row over the
+    total (a continuity correction of one half, common practice), so a rare class
+    with one site does not take an infinite density. Unlike the raw share of sites,
+    this does not call a class suitable merely because it covers much of the study
+    area.
+    """
+    site_values = pd.Series(np.asarray(site_values, dtype=object))
+    background_values = pd.Series(np.asarray(background_values, dtype=object))
+    ws = np.ones(len(site_values)) if site_weight is None else np.asarray(site_weight, dtype=float)
+    wb = np.ones(len(background_values)) if background_weight is None else np.asarray(background_weight, float)
+    site_share = pd.Series(ws).groupby(site_values.to_numpy(), sort=False).sum() / ws.sum()
+    bg_total = wb.sum()
+    bg_share = pd.Series(wb).groupby(background_values.to_numpy(), sort=False).sum() / bg_total
+    floor = 0.5 * wb[wb > 0].min() / bg_total
+    density = site_share / bg_share.reindex(site_share.index).fillna(0.0).clip(lower=floor)
+    membership = density / density.max()
+    return dict(zip(membership.index.tolist(), membership.to_numpy(dtype=float).tolist()))
+
+
+class FuzzySuitability(ClassifierMixin, BaseEstimator):
+    """Percentile-fuzzy suitability model, the traditional baseline.
+
+    For each numeric layer, four control points a <= b <= c <= d are the chosen
+    percentiles of the layer at known sites; the membership function (see
+    :func:`fuzzy_membership`) gives 1 where a value is typical of sites and falls
+    towards the extremes, to ``membership_floor`` rather than to 0. Layer memberships
+    are combined by a fuzzy operator (see :func:`fuzzy_combine`), and the result mu
+    is the suitability.
+
+    Parameters
+    ----------
+    percentiles : sequence of 4 float, default (20, 40, 60, 80)
         Non-decreasing percentiles in [0, 100] giving a, b, c, d.
     shape : {"linear", "cosine"}, default "linear"
         Membership limb shape ("cosine" is the cos^2 sigmoid).
-    operator : {"and", "or", "product", "sum", "gamma"}, default "and"
+    operator : {"minimum", "maximum", "algebraic_product", "algebraic_sum", \
+"gamma_operator"}, default "gamma_operator"
         How layer memberships are combined.
-    gamma : float in [0, 1], default 0.9
-        Exponent of the gamma operator.
+    gamma : float in [0, 1] or None, default None
+        Exponent of the gamma operator. None chooses it in ``fit`` from the training
+        rows only (see Notes); ignored by the other operators.
+    membership_floor : float in [0, 1), default 0.2
+        Least membership of any layer: mu = floor + (1 - floor) * trapezoid, so a
+        value outside the site range (or a class without sites) lowers the
+        suitability without zeroing the algebraic product for every other layer.
+        0 gives the plain trapezoid.
+    rescale_product : bool, default True
+        Report the result of "algebraic_product" and "gamma_operator" as its n-th
+        root (n = number of layers), the geometric mean per layer. The root keeps
+        the order of cells (AUC, gains, zones do not change) but puts the score on
+        the scale of one layer's membership: a product of a dozen memberships is
+        otherwise below 0.01 almost everywhere, which crowds the whole landscape into
+        the lowest windows of the Boyce index. False gives the operator's value.
     categorical_features : sequence of int or str, optional
         Columns (indices, or names when fitting on a DataFrame) holding category
         codes, such as landform classes or soil units.
@@ -271,7 +349,12 @@ class FuzzySuitability(ClassifierMixin, BaseEstimator):
     is_categorical_ : ndarray of bool, shape (n_features_in_,)
         Which layers are categorical.
     category_memberships_ : dict
-        For each categorical column index, a dict from category to membership.
+        For each categorical column index, a dict from category to membership
+        (before the floor), see :func:`category_memberships`.
+    gamma_ : float or None
+        The gamma used by the gamma operator (given, or chosen in fit).
+    gamma_auc_ : ndarray of shape (21,) or None
+        Training AUC for each gamma of :data:`GAMMA_GRID` when gamma was chosen.
     n_features_in_ : int
         Number of layers seen in fit.
     feature_names_in_ : ndarray of str
@@ -279,14 +362,27 @@ class FuzzySuitability(ClassifierMixin, BaseEstimator):
 
     Notes
     -----
-    Only site rows (label ``classes_[1]``) with positive weight are used; background
-    rows just establish the second class. Percentiles are weighted as defined in
-    :func:`weighted_percentile` (equal weights: numpy "linear", type 7).
+    Control points use only the site rows (label ``classes_[1]``) with positive
+    weight; percentiles are weighted as defined in :func:`weighted_percentile`
+    (equal weights: numpy "linear", type 7).
 
-    Categorical layers (our choice): the membership of a category is the share of
-    site weight in that category divided by the largest share, so the most common
-    category among sites gets 1 and categories without sites (including categories
-    unseen in fit) get 0.
+    Categorical layers: the membership of a class is its relative site density,
+    the share of site weight in the class over the share of background weight in
+    it, divided by the largest such ratio (:func:`category_memberships`); classes
+    without sites and classes unseen in fit get 0 (then the floor).
+
+    Choosing gamma (``gamma=None`` with the gamma operator): each gamma of
+    0, 0.05, ..., 1 is scored by the weighted ROC AUC of the training site rows
+    against the training background rows (``sklearn.metrics.roc_auc_score``); the
+    smallest gamma whose AUC is within 0.001 of the best is kept (with many layers
+    FAS is close to 1 nearly everywhere and the AUC hardly moves with gamma, so the
+    exact maximum would be chance). Inside cross-validation ``fit`` sees only
+    a fold's training rows, so the choice never looks at held-out data.
+
+    The defaults were chosen by spatially cross-validated AUC on virtual sites
+    (``tests/benchmarks/fuzzy_defaults.py``): the minimum over a dozen trapezoids
+    that are 0 outside the site range ties most cells at 0, which made the
+    baseline look worse than the method is.
 
     ``predict_proba`` returns [1 - mu, mu] and ``predict`` gives ``classes_[1]`` where
     mu > 0.5. There is no ``decision_function``: scikit-learn reads its sign as the
@@ -308,7 +404,7 @@ class FuzzySuitability(ClassifierMixin, BaseEstimator):
     >>> X = np.array([[12.], [15.], [18.], [20.], [22.], [25.], [27.], [30.], [35.],
     ...               [48.], [5.], [60.]])
     >>> y = np.array([1] * 10 + [0, 0])
-    >>> model = FuzzySuitability().fit(X, y)
+    >>> model = FuzzySuitability(percentiles=(5, 25, 75, 95)).fit(X, y)
     >>> model.control_points_.round(2).tolist()
     [[13.35, 18.5, 29.25, 42.15]]
     """
@@ -316,10 +412,12 @@ class FuzzySuitability(ClassifierMixin, BaseEstimator):
     def __init__(
         self,
         *,
-        percentiles=(5, 25, 75, 95),
+        percentiles=DEFAULT_PERCENTILES,
         shape="linear",
-        operator="and",
-        gamma=0.9,
+        operator="gamma_operator",
+        gamma=None,
+        membership_floor=DEFAULT_MEMBERSHIP_FLOOR,
+        rescale_product=True,
         categorical_features=None,
         monotone=None,
     ):
@@ -327,6 +425,8 @@ class FuzzySuitability(ClassifierMixin, BaseEstimator):
         self.shape = shape
         self.operator = operator
         self.gamma = gamma
+        self.membership_floor = membership_floor
+        self.rescale_product = rescale_product
         self.categorical_features = categorical_features
         self.monotone = monotone
 
@@ -340,7 +440,7 @@ class FuzzySuitability(ClassifierMixin, BaseEstimator):
         return tags
 
     def fit(self, X, y, sample_weight=None):
-        """Fit control points from the site rows.
+        """Fit control points, class memberships and (if asked) gamma.
 
         Parameters
         ----------
@@ -349,7 +449,7 @@ class FuzzySuitability(ClassifierMixin, BaseEstimator):
         y : array_like of shape (n_samples,)
             Two class labels; the larger one (``classes_[1]``) marks sites.
         sample_weight : array_like of shape (n_samples,), optional
-            Non-negative weights; only the site rows' weights matter.
+            Non-negative weights.
 
         Returns
         -------
@@ -367,11 +467,13 @@ class FuzzySuitability(ClassifierMixin, BaseEstimator):
             )
         w = np.ones(len(y)) if sample_weight is None else _check_weights(sample_weight, len(y))
         site = (y == self.classes_[1]) & (w > 0)
-        if not site.any():
-            raise InsufficientDataError(
-                f"No rows of the site class {self.classes_[1]!r} have positive weight; "
-                "at least one weighted site is needed to fit FuzzySuitability."
-            )
+        background = (y == self.classes_[0]) & (w > 0)
+        for mask, what in ((site, "site"), (background, "background")):
+            if not mask.any():
+                raise InsufficientDataError(
+                    f"No rows of the {what} class {self.classes_[int(what == 'site')]!r} have positive "
+                    f"weight; at least one weighted {what} row is needed to fit FuzzySuitability."
+                )
         n_features = X.shape[1]
         self.is_categorical_ = np.zeros(n_features, dtype=bool)
         self.is_categorical_[self._categorical_indices(n_features)] = True
@@ -382,11 +484,8 @@ class FuzzySuitability(ClassifierMixin, BaseEstimator):
         for j in range(n_features):
             col = X[site, j]
             if self.is_categorical_[j]:
-                codes, uniques = pd.factorize(col)
-                totals = np.bincount(codes, weights=use_w)
-                self.category_memberships_[j] = dict(
-                    zip(uniques.tolist(), (totals / totals.max()).tolist())
-                )
+                self.category_memberships_[j] = category_memberships(
+                    col, X[background, j], site_weight=w[site], background_weight=w[background])
                 continue
             cp = weighted_percentile(col.astype(float), list(self.percentiles), use_w)
             if directions[j] == "increasing":
@@ -394,10 +493,27 @@ class FuzzySuitability(ClassifierMixin, BaseEstimator):
             elif directions[j] == "decreasing":
                 cp[:2] = -np.inf
             self.control_points_[j] = cp
+        self.gamma_ = None if self.gamma is None else float(self.gamma)
+        self.gamma_auc_ = None
+        if self.operator == "gamma_operator" and self.gamma is None:
+            self.gamma_, self.gamma_auc_ = self._choose_gamma(X[site | background], y[site | background],
+                                                              w[site | background])
         return self
 
+    def _choose_gamma(self, X, y, w):
+        """The smallest gamma of GAMMA_GRID whose weighted training AUC is within the tolerance of the best."""
+        from sklearn.metrics import roc_auc_score
+
+        mu = self._memberships(X)
+        fap = np.prod(mu, axis=1)
+        fas = 1.0 - np.prod(1.0 - mu, axis=1)
+        truth = (y == self.classes_[1]).astype(int)
+        auc = np.array([roc_auc_score(truth, fas**g * fap ** (1.0 - g), sample_weight=w) for g in GAMMA_GRID])
+        best = int(np.flatnonzero(auc >= auc.max() - GAMMA_AUC_TOLERANCE)[0])
+        return float(GAMMA_GRID[best]), auc
+
     def predict_memberships(self, X):
-        """Membership of each layer at each row.
+        """Membership of each layer at each row, floor included.
 
         Parameters
         ----------
@@ -406,10 +522,12 @@ class FuzzySuitability(ClassifierMixin, BaseEstimator):
         Returns
         -------
         ndarray of shape (n_samples, n_features_in_)
-            Per-layer memberships in [0, 1].
+            Per-layer memberships in [membership_floor, 1].
         """
         check_is_fitted(self)
-        X = self._validate_X(X, reset=False)
+        return self._memberships(self._validate_X(X, reset=False))
+
+    def _memberships(self, X):
         mu = np.empty(X.shape, dtype=float)
         for j in range(X.shape[1]):
             if self.is_categorical_[j]:
@@ -422,7 +540,8 @@ class FuzzySuitability(ClassifierMixin, BaseEstimator):
                 mu[:, j] = fuzzy_membership(
                     X[:, j].astype(float), self.control_points_[j], shape=self.shape
                 )
-        return mu
+        floor = float(self.membership_floor)
+        return mu if floor == 0 else floor + (1.0 - floor) * mu
 
     def predict_proba(self, X):
         """Return [1 - mu, mu] per row, mu being the combined suitability.
@@ -435,7 +554,10 @@ class FuzzySuitability(ClassifierMixin, BaseEstimator):
         -------
         ndarray of shape (n_samples, 2)
         """
-        mu = fuzzy_combine(self.predict_memberships(X), operator=self.operator, gamma=self.gamma)
+        memberships = self.predict_memberships(X)
+        mu = fuzzy_combine(memberships, operator=self.operator, gamma=self.gamma_)
+        if self.rescale_product and self.operator in ("algebraic_product", "gamma_operator"):
+            mu = mu ** (1.0 / memberships.shape[1])
         return np.column_stack([1.0 - mu, mu])
 
     def predict(self, X):
@@ -459,8 +581,10 @@ class FuzzySuitability(ClassifierMixin, BaseEstimator):
             raise InputError(f"Unknown shape {self.shape!r}; use one of {_SHAPES}.")
         if self.operator not in _OPERATORS:
             raise InputError(f"Unknown operator {self.operator!r}; use one of {_OPERATORS}.")
-        if not isinstance(self.gamma, Real) or not 0.0 <= self.gamma <= 1.0:
-            raise InputError(f"gamma must be a number in [0, 1]; got {self.gamma!r}.")
+        _check_gamma(self.gamma, allow_none=True)
+        floor = self.membership_floor
+        if isinstance(floor, bool) or not isinstance(floor, Real) or not 0.0 <= floor < 1.0:
+            raise InputError(f"membership_floor must be a number in [0, 1); got {floor!r}.")
         p = np.asarray(self.percentiles, dtype=float) if _is_numeric_seq(self.percentiles) else None
         if (
             p is None

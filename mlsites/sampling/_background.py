@@ -30,7 +30,7 @@ from mlsites.sampling._sites import (
     sites_in_grid_crs,
 )
 
-__all__ = ["sample_background", "balance_weights", "SURVEY_MODES"]
+__all__ = ["sample_background", "balance_weights", "sample_weights", "in_survey", "SURVEY_MODES"]
 
 SURVEY_MODES = ("inside", "weighted")
 BACKGROUND_COLUMNS = ["row", "col", "x", "y", "weight"]
@@ -74,6 +74,85 @@ def balance_weights(presence_weight_total: float, n_background: int) -> float:
     if int(n_background) < 1:
         raise InputError(f"n_background={n_background}; expected at least one background row")
     return float(presence_weight_total) / int(n_background)
+
+
+def sample_weights(label, site_id) -> np.ndarray:
+    """Weights of a presence-background table: each site counts once, mean weight 1.
+
+    Parameters
+    ----------
+    label : array-like of int, shape (n_samples,)
+        1 for site cells, 0 for background cells.
+    site_id : array-like, shape (n_samples,)
+        Site of each site cell (any hashable values; ignored for background).
+
+    Returns
+    -------
+    ndarray of float64, shape (n_samples,)
+        Site cells ``c / n_cells(site)``, background cells ``c * n_sites / n_background``
+        with ``c = n_samples / (2 * n_sites)``, so that the weights average 1.
+
+    Raises
+    ------
+    InputError
+        Labels other than 0 and 1, or no site cell or no background cell.
+
+    Notes
+    -----
+    The ratios are those of METHODS.md §7: every site's cells sum to the same
+    total whatever the site's size, and all background together weighs as much as
+    all sites (balanced weighting, Barbet-Massin et al. 2012). The common factor
+    ``c`` makes the weights average 1, so their sum is the number of samples and not
+    a quantity that grows with the number of sites; a learner whose settings are
+    absolute amounts of weight (a minimum leaf weight, a penalty on the summed loss)
+    then reads them the same way in every study. Duplicating a study (the same sites
+    twice under new ids, the background twice) gives every row the same weight as
+    before.
+    """
+    label = np.asarray(label)
+    site_id = np.asarray(site_id, dtype=object)
+    if label.shape != site_id.shape or label.ndim != 1:
+        raise InputError(f"label {label.shape} and site_id {site_id.shape} must be 1-d and of one length")
+    if not np.isin(label, (0, 1)).all():
+        raise InputError("label must hold 1 for site cells and 0 for background cells")
+    pres = label == 1
+    n_bg = int((~pres).sum())
+    if not pres.any() or n_bg == 0:
+        raise InputError(f"{int(pres.sum())} site cells and {n_bg} background cells; both are needed")
+    codes, uniques = pd.factorize(pd.Series(site_id[pres]).astype(str))
+    n_sites = len(uniques)
+    w = np.empty(label.size, dtype=np.float64)
+    w[pres] = 1.0 / np.bincount(codes)[codes]
+    w[~pres] = balance_weights(float(n_sites), n_bg)
+    return w * (label.size / (2.0 * n_sites))
+
+
+def in_survey(x, y, grid: GridSpec, survey) -> np.ndarray:
+    """Whether each point (cell centre) lies inside a survey polygon.
+
+    Parameters
+    ----------
+    x, y : array-like of float
+        Coordinates in the grid CRS, for example presence cell centres.
+    grid : GridSpec
+        The study grid (the survey layer is reprojected to its CRS).
+    survey : GeoDataFrame or path-like
+        Survey-coverage polygons, as for :func:`sample_background`.
+
+    Returns
+    -------
+    ndarray of bool
+        True where the point lies strictly inside a survey polygon: the rule by
+        which ``survey_mode = "inside"`` accepts background cells, so a site none
+        of whose cells passes it sits where no background can be drawn.
+
+    Raises
+    ------
+    InputError, CRSError, VectorReadError
+        As :func:`sample_background` for a bad survey layer.
+    """
+    surv = _Survey.build(survey, grid, "inside", None)
+    return surv.effort_at(x, y) > 0
 
 
 def sample_background(grid: GridSpec, *, n: int | None = None, fraction: float | None = None,
@@ -506,11 +585,10 @@ class _Survey:
         if mode == "weighted":
             overlap &= effort > 0
         if not overlap.any():
-            sb, gb = shapely.total_bounds(polys), grid.bounds
+            sb = shapely.total_bounds(polys)
             raise InputError(
-                f"{source}: the survey polygons (x {sb[0]:.6g}..{sb[2]:.6g}, y {sb[1]:.6g}.."
-                f"{sb[3]:.6g}) do not overlap the study grid (x {gb[0]:.6g}..{gb[2]:.6g}, y "
-                f"{gb[1]:.6g}..{gb[3]:.6g})"
+                f"{source}: the survey polygons ({grid.extent_text(sb)}) do not overlap the study grid "
+                f"({grid.extent_text()})"
                 + ("" if mode == "inside" else " with an effort > 0")
                 + "; check the survey layer and its CRS"
             )
@@ -572,8 +650,9 @@ def _read_survey(survey):
         try:
             return gpd.read_file(path), path.name
         except Exception as exc:
-            first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-            raise VectorReadError(f"{path}: not a vector layer GDAL can read ({first})") from None
+            from mlsites._validation import gdal_reason
+
+            raise VectorReadError(f"{path}: not a vector layer GDAL can read ({gdal_reason(exc)})") from None
     raise InputError(f"survey: expected a GeoDataFrame or a path, got {type(survey).__name__}")
 
 

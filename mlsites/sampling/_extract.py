@@ -24,7 +24,7 @@ __all__ = ["extract_values", "read_valid_mask"]
 BLOCK_SIZE = 1024
 
 
-def extract_values(layers: Mapping, rows, cols, grid: GridSpec, *, kinds=None,
+def extract_values(layers: Mapping, rows, cols, grid: GridSpec, *, kinds=None, bands=None,
                    block_size: int = BLOCK_SIZE) -> pd.DataFrame:
     """Read the value of every layer at the given cells.
 
@@ -41,6 +41,8 @@ def extract_values(layers: Mapping, rows, cols, grid: GridSpec, *, kinds=None,
         Layer kind, which chooses the resampling of rasters not on the grid:
         "continuous" (bilinear, the default), "categorical" (nearest) or
         "categorical_mode" (mode). One string applies to all layers.
+    bands : mapping of str to int, optional
+        Band of each raster layer (1-based); default 1.
     block_size : int, default 1024
         Edge of the blocks (cells) the grid is divided into for reading.
 
@@ -53,7 +55,8 @@ def extract_values(layers: Mapping, rows, cols, grid: GridSpec, *, kinds=None,
     Raises
     ------
     InputError
-        A cell lies outside the grid, a layer name or kind is unknown.
+        A cell lies outside the grid, a layer name or kind is unknown, or a band
+        does not exist in its raster.
     GridMismatchError
         An array layer does not have the grid shape.
     RasterReadError
@@ -79,17 +82,19 @@ def extract_values(layers: Mapping, rows, cols, grid: GridSpec, *, kinds=None,
         raise InputError(f"block_size={block_size}; expected a positive number of cells")
     if isinstance(kinds, str) or kinds is None:
         kinds = {name: kinds or "continuous" for name in layers}
-    unknown = set(kinds) - set(layers)
-    if unknown:
-        raise InputError(f"kinds names unknown layer(s) {sorted(unknown)}; "
-                         f"layers are {list(layers)}")
+    bands = dict(bands or {})
+    for what, given in (("kinds", kinds), ("bands", bands)):
+        unknown = set(given) - set(layers)
+        if unknown:
+            raise InputError(f"{what} names unknown layer(s) {sorted(unknown)}; "
+                             f"layers are {list(layers)}")
 
     groups = _block_groups(rows, cols, grid, block_size)
     out = {}
     for name, layer in layers.items():
         kind = kinds.get(name, "continuous")
         if isinstance(layer, (str, Path)):
-            out[name] = _extract_raster(layer, rows, cols, grid, kind, groups)
+            out[name] = _extract_raster(layer, rows, cols, grid, kind, bands.get(name, 1), groups)
         else:
             arr = _check_layer_array(layer, grid, name)
             out[name] = arr[rows, cols].astype(np.float64)
@@ -113,9 +118,9 @@ def _block_groups(rows, cols, grid, block_size):
     return groups
 
 
-def _extract_raster(path, rows, cols, grid, kind, groups):
+def _extract_raster(path, rows, cols, grid, kind, band, groups):
     values = np.full(rows.size, np.nan, dtype=np.float64)
-    with AlignedRaster(path, grid, kind=kind) as src:
+    with AlignedRaster(path, grid, kind=kind, band=band) as src:
         for idx, window in groups:
             block = src.read(window, dtype=np.float64)
             values[idx] = block[rows[idx] - int(window.row_off), cols[idx] - int(window.col_off)]

@@ -19,6 +19,7 @@ import pandas as pd
 import shapely
 from pyproj import CRS as ProjCRS
 
+from mlsites._validation import gdal_reason
 from mlsites.errors import (
     CRSError,
     DataQualityWarning,
@@ -36,6 +37,8 @@ CSV_SUFFIXES = {".csv", ".tsv", ".txt"}
 #: Column names tried (case-insensitively) when the CSV coordinate columns are not named.
 X_NAMES = ("x", "easting", "east", "lon", "long", "longitude")
 Y_NAMES = ("y", "northing", "north", "lat", "latitude")
+#: Columns of the kept-site table (besides any ``keep_fields``).
+_OUTPUT_COLUMNS = ("site_id", "start_year", "end_year", "kind", "certainty", "source_row", "geometry")
 #: Columns of the table of dropped records.
 DROPPED_COLUMNS = ["source_row", "site_id", "reason"]
 
@@ -89,11 +92,12 @@ class SiteRecords:
 
     def check_n_splits(self, n_splits: int) -> None:
         """Raise :class:`InsufficientDataError` if there are fewer sites than folds."""
-        check_n_splits(self.n_kept, n_splits, source=self.source, summary=self.summary())
+        check_n_splits(self.n_kept, n_splits, source=self.source, summary=self.summary(),
+                       n_duplicate_ids=self.drop_counts().get("duplicate id", 0))
 
 
 def check_n_splits(n_sites: int, n_splits: int, *, source: str = "the site layer",
-                   summary: str | None = None) -> None:
+                   summary: str | None = None, n_duplicate_ids: int = 0) -> None:
     """Stop when there are too few usable sites for the requested number of folds.
 
     Parameters
@@ -106,24 +110,35 @@ def check_n_splits(n_sites: int, n_splits: int, *, source: str = "the site layer
         File name for the message.
     summary : str, optional
         The :meth:`SiteRecords.summary` line, appended to the message.
+    n_duplicate_ids : int, default 0
+        Records dropped because their id was already used; when there are any
+        the message says so, as shared ids are the usual cause of too few sites.
 
     Raises
     ------
     InsufficientDataError
     """
-    if n_sites < n_splits:
-        extra = f" ({summary})" if summary else ""
-        raise InsufficientDataError(
-            f"{source}: {n_sites} usable site(s) but {n_splits} folds requested{extra}; "
-            f"every fold needs at least one site. Use at most {max(n_sites, 1)} folds or add sites."
-        )
+    if n_sites >= n_splits:
+        return
+    extra = f" ({summary})" if summary else ""
+    if n_duplicate_ids:
+        advice = (f"{n_duplicate_ids} record(s) repeat an id already used and count as the same site: "
+                  "give each site its own id (the id_field column, id_field in [sites])")
+    elif n_sites >= 2:
+        advice = f"use at most {n_sites} folds (n_splits) or add sites"
+    else:
+        advice = "cross-validation needs at least 2 sites; add sites"
+    raise InsufficientDataError(
+        f"{source}: {n_sites} usable site(s) but {n_splits} folds requested{extra}; "
+        f"every fold needs at least one site: {advice}."
+    )
 
 
 def read_sites(path, grid: GridSpec, *, id_field: str = "site_id", x_field: str | None = None,
                y_field: str | None = None, crs=None, start_field: str | None = None,
                end_field: str | None = None, kind_field: str | None = None,
                certainty_field: str | None = None, layer: str | None = None,
-               valid_mask=None) -> SiteRecords:
+               valid_mask=None, keep_fields=()) -> SiteRecords:
     """Read site records, reproject them to the study grid and validate them.
 
     Parameters
@@ -152,6 +167,10 @@ def read_sites(path, grid: GridSpec, *, id_field: str = "site_id", x_field: str 
     valid_mask : bool ndarray of the grid shape, raster path or callable, optional
         Study-area mask (True = usable cell). A callable takes ``(rows, cols)``
         arrays and returns booleans. Point sites on invalid cells are dropped.
+    keep_fields : sequence of str, optional
+        Other columns carried over unchanged under their own names (for example
+        a dating category); each must exist and must not be one of the output
+        columns above.
 
     Returns
     -------
@@ -177,8 +196,9 @@ def read_sites(path, grid: GridSpec, *, id_field: str = "site_id", x_field: str 
     Notes
     -----
     Checks run in this order and each dropped record gets the first reason that
-    applies: "empty geometry" (or "missing coordinates" in a CSV),
-    "unsupported geometry type X", "missing id", "start year not a number",
+    applies: "empty geometry" (in a CSV "missing coordinates", or "coordinates
+    not numbers" with the text found), "polygon with zero area" (an outline that
+    collapses to a line or point), "unsupported geometry type X", "missing id", "start year not a number",
     "end year not a number", "start year after end year", "could not be
     reprojected", "outside study area" (a point outside the grid, a polygon not
     touching it), "on nodata cell" (points only; polygons are checked cell by
@@ -194,8 +214,13 @@ def read_sites(path, grid: GridSpec, *, id_field: str = "site_id", x_field: str 
     n_read = len(raw)
     if n_read == 0:
         raise InsufficientDataError(f"{source}: contains no site records; give a layer with sites")
-    for field in (start_field, end_field, kind_field, certainty_field):
+    keep_fields = [f for f in dict.fromkeys(keep_fields or ()) if f is not None]
+    for field in (start_field, end_field, kind_field, certainty_field, *keep_fields):
         _require_column(raw, field, source)
+    clash = [f for f in keep_fields if f in _OUTPUT_COLUMNS]
+    if clash:
+        raise InputError(f"{source}: column {clash[0]!r} cannot be carried over, the site table has a column of "
+                         f"that name ({', '.join(_OUTPUT_COLUMNS)}); rename it in the layer")
     reasons = np.full(n_read, None, dtype=object)
 
     def drop(mask, reason):
@@ -208,7 +233,9 @@ def read_sites(path, grid: GridSpec, *, id_field: str = "site_id", x_field: str 
     geoms = raw.geometry.to_numpy()
     empty = shapely.is_missing(geoms) | shapely.is_empty(geoms)
     drop(empty, raw.attrs.get("empty_reason", "empty geometry"))
-    geoms = _normalise_geometries(geoms, ~empty, source)
+    geoms, collapsed = _normalise_geometries(geoms, ~empty, source)
+    drop(collapsed, "polygon with zero area (its outline collapses to a line or point); "
+                    "give the site as a point or as a polygon with an area")
     gtype = np.array([g.geom_type if g is not None else "" for g in geoms], dtype=object)
     unsupported = ~np.isin(gtype, ["Point", "Polygon", "MultiPolygon"]) & ~empty
     drop(unsupported, np.array([f"unsupported geometry type {t}" for t in gtype], dtype=object))
@@ -266,6 +293,7 @@ def read_sites(path, grid: GridSpec, *, id_field: str = "site_id", x_field: str 
             "kind": _optional_text(raw, kind_field)[keep],
             "certainty": _optional_certainty(raw, certainty_field)[keep],
             "source_row": raw["source_row"].to_numpy()[keep],
+            **{f: raw[f].to_numpy()[keep] for f in keep_fields},
         },
         geometry=gpd.GeoSeries(pgeoms[keep]).values,
         crs=grid.crs,
@@ -280,8 +308,11 @@ def read_sites(path, grid: GridSpec, *, id_field: str = "site_id", x_field: str 
     )
     records = SiteRecords(sites, dropped, source, n_read)
     if records.n_kept == 0:
-        raise InsufficientDataError(f"{source}: no usable site record ({records.summary()}); "
-                                    "see the reasons and fix the layer")
+        hint = "see the reasons and fix the layer"
+        if "could not be reprojected" in records.drop_counts():
+            hint = (f"coordinates that cannot be reprojected rarely fit their CRS ({src_crs.to_string()}): "
+                    "set crs in [sites] (or --crs) to the CRS they were recorded in")
+        raise InsufficientDataError(f"{source}: no usable site record ({records.summary()}); {hint}")
     if len(dropped):
         warnings.warn(records.summary(), DataQualityWarning, stacklevel=2)
     return records
@@ -309,7 +340,7 @@ def _read_table(path, *, id_field, x_field, y_field, crs, layer):
     try:
         layers = pyogrio.list_layers(path)
     except Exception as exc:  # pyogrio raises several types for unreadable data
-        raise VectorReadError(f"{path}: not a vector file GDAL can read ({_first_line(exc)}); "
+        raise VectorReadError(f"{path}: not a vector file GDAL can read ({gdal_reason(exc)}); "
                               "give a GeoPackage, GeoJSON, Shapefile or CSV") from None
     names = [str(n) for n in layers[:, 0]]
     if layer is None and len(names) > 1:
@@ -320,7 +351,7 @@ def _read_table(path, *, id_field, x_field, y_field, crs, layer):
     try:
         gdf = gpd.read_file(path, layer=layer)
     except Exception as exc:
-        raise VectorReadError(f"{path}: could not be read ({_first_line(exc)})") from None
+        raise VectorReadError(f"{path}: could not be read ({gdal_reason(exc)})") from None
     gdf = gdf.reset_index(drop=True)
     gdf["source_row"] = np.arange(len(gdf))
     _require_column(gdf, id_field, source, what="id_field")
@@ -336,7 +367,7 @@ def _read_csv(path: Path, *, id_field, x_field, y_field, crs):
             sep = ";" if ";" in name else ("\t" if "\t" in name else ",")
         table = pd.read_csv(path, sep=sep, dtype={id_field: str})
     except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
-        raise VectorReadError(f"{path}: not a readable CSV table ({_first_line(exc)})") from None
+        raise VectorReadError(f"{path}: not a readable CSV table ({gdal_reason(exc)})") from None
     found = [str(c) for c in table.columns]
     x_col = _find_column(found, x_field, X_NAMES)
     y_col = _find_column(found, y_field, Y_NAMES)
@@ -347,8 +378,8 @@ def _read_csv(path: Path, *, id_field, x_field, y_field, crs):
             "Name the coordinate columns with x_field and y_field."
         )
     if crs is None:
-        raise CRSError(f"{path}: a CSV carries no CRS; pass crs giving the CRS of columns "
-                       f"{x_col}/{y_col} (for example crs='EPSG:4326' for degrees)")
+        raise CRSError(f"{path}: a CSV carries no CRS; set crs in [sites] (or --crs) to the CRS of "
+                       f"columns {x_col}/{y_col}, for example crs = \"EPSG:4326\" for degrees")
     _require_column(table, id_field, path.name, what="id_field")
     x = pd.to_numeric(table[x_col], errors="coerce").to_numpy(dtype=float)
     y = pd.to_numeric(table[y_col], errors="coerce").to_numpy(dtype=float)
@@ -358,7 +389,13 @@ def _read_csv(path: Path, *, id_field, x_field, y_field, crs):
     src_crs = _resolve_crs(None, crs, path.name)
     gdf = gpd.GeoDataFrame(table, geometry=gpd.GeoSeries(geoms).values, crs=src_crs)
     gdf["source_row"] = np.arange(len(gdf))
-    gdf.attrs["empty_reason"] = "missing coordinates"
+    # A cell that holds text (a decimal comma, a degree sign) is not "missing": say what it holds.
+    given = table[x_col].notna().to_numpy() & table[y_col].notna().to_numpy()
+    reasons = np.full(len(table), "missing coordinates", dtype=object)
+    for i in np.flatnonzero(given & ~ok):
+        reasons[i] = (f"coordinates not numbers ({x_col} {table[x_col].iloc[i]!r}, "
+                      f"{y_col} {table[y_col].iloc[i]!r})")
+    gdf.attrs["empty_reason"] = reasons
     return gdf, src_crs
 
 
@@ -377,17 +414,17 @@ def _resolve_crs(file_crs, given, source):
         try:
             given_crs = ProjCRS.from_user_input(given)
         except Exception:
-            raise CRSError(f"{source}: crs={given!r} is not a CRS pyproj understands; "
-                           "give an EPSG code like 'EPSG:4326' or a WKT string") from None
+            raise CRSError(f"{source}: crs = {given!r} is not a CRS pyproj understands; set crs in [sites] "
+                           "(or --crs) to an EPSG code like \"EPSG:4326\" or a WKT string") from None
         if file_crs is not None and not ProjCRS.from_user_input(file_crs).equals(given_crs):
             raise CRSError(
                 f"{source}: the file declares CRS {ProjCRS.from_user_input(file_crs).to_string()} "
-                f"but crs={given!r} was given; leave crs out or fix the file's CRS"
+                f"but crs = {given!r} was given; remove crs from [sites] (or --crs) or fix the file's CRS"
             )
         return given_crs
     if file_crs is None:
-        raise CRSError(f"{source}: the layer has no CRS; pass crs with the CRS of its "
-                       "coordinates (for example crs='EPSG:4326')")
+        raise CRSError(f"{source}: the layer has no CRS; set crs in [sites] (or --crs) to the CRS of its "
+                       "coordinates, for example crs = \"EPSG:4326\"")
     return ProjCRS.from_user_input(file_crs)
 
 
@@ -398,11 +435,6 @@ def _require_column(table, field, source, what="field"):
                          f"{', '.join(cols) or 'none'}")
 
 
-def _first_line(exc) -> str:
-    text = str(exc).strip()
-    return text.splitlines()[0] if text else type(exc).__name__
-
-
 # -- cleaning ------------------------------------------------------------------
 def _normalise_geometries(geoms, present, source):
     geoms = geoms.copy()
@@ -411,15 +443,22 @@ def _normalise_geometries(geoms, present, source):
         single = mp & (shapely.get_num_geometries(geoms) == 1)
         geoms[single] = shapely.get_geometry(geoms[single], 0)
     polys = present & np.isin(shapely.get_type_id(geoms), [3, 6])
+    # A zero-area outline is invalid, and make_valid turns it into a line or point.
+    collapsed = np.zeros(len(geoms), dtype=bool)
     invalid = polys & ~shapely.is_valid(geoms)
     if invalid.any():
         fixed = shapely.make_valid(geoms[invalid])
         for i, g in zip(np.flatnonzero(invalid), fixed):
             parts = [p for p in shapely.get_parts(g) if p.geom_type in ("Polygon", "MultiPolygon")]
-            geoms[i] = shapely.union_all(parts) if parts else g
-        warnings.warn(f"{source}: repaired {int(invalid.sum())} invalid polygon(s) with "
-                      "make_valid; check their outlines", DataQualityWarning, stacklevel=4)
-    return geoms
+            if parts:
+                geoms[i] = shapely.union_all(parts)
+            else:
+                collapsed[i] = True
+        repaired = int((invalid & ~collapsed).sum())
+        if repaired:
+            warnings.warn(f"{source}: repaired {repaired} invalid polygon(s) with "
+                          "make_valid; check their outlines", DataQualityWarning, stacklevel=4)
+    return geoms, collapsed
 
 
 def _clean_ids(values: pd.Series) -> np.ndarray:
@@ -478,12 +517,10 @@ def _drop_duplicates(keys, reasons, drop, reason):
 
 def _all_outside_message(source, n, geoms, grid, src_crs):
     b = shapely.total_bounds(geoms)
-    gb = grid.bounds
     return (
-        f"{source}: all {n} site records lie outside the study grid (sites span "
-        f"x {b[0]:.6g}..{b[2]:.6g}, y {b[1]:.6g}..{b[3]:.6g}; grid x {gb[0]:.6g}..{gb[2]:.6g}, "
-        f"y {gb[1]:.6g}..{gb[3]:.6g} in {ProjCRS.from_user_input(grid.crs).to_string()}); "
-        f"check that crs ({src_crs.to_string()}) is the CRS of the site coordinates"
+        f"{source}: all {n} site records lie outside the study grid (sites span {grid.extent_text(b)}; "
+        f"grid {grid.extent_text()}, in {ProjCRS.from_user_input(grid.crs).to_string()}); "
+        f"check that the CRS of the site coordinates is {src_crs.to_string()}, or set crs in [sites] (or --crs)"
     )
 
 

@@ -8,6 +8,13 @@ from mlsites.synthetic._landscape import (
     make_landscape,
     write_landscape_dem,
 )
+from mlsites.synthetic._phases import (
+    PHASE_PREFERENCES,
+    PHASED_CATEGORIES,
+    TWO_PHASES,
+    PhasedSites,
+    make_phased_sites,
+)
 from mlsites.synthetic._virtual_sites import (
     DEFAULT_PREFERENCE,
     PHASES,
@@ -28,4 +35,9 @@ __all__ = [
     "VirtualSites",
     "make_virtual_sites",
     "preference_surface",
+    "TWO_PHASES",
+    "PHASE_PREFERENCES",
+    "PHASED_CATEGORIES",
+    "PhasedSites",
+    "make_phased_sites",
 ]

@@ -27,7 +27,7 @@ PHASES = {
     "Reedbank phase": (-3200, -2500),
     "Tallow Hill phase": (-2500, -1700),
     "Copperlane phase": (-1700, -900),
-    "Ashford Ring phase": (-900, -100),
+    "Quernstone phase": (-900, -100),
     "Lantern Road phase": (-100, 500),
 }
 

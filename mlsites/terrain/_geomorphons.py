@@ -18,28 +18,28 @@ from mlsites.errors import InputError
 
 __all__ = ["geomorphons", "LANDFORM_CLASSES"]
 
-#: Landform code -> descriptive name. Code 0 is nodata. Names follow the landform
-#: vocabulary of Jasiewicz & Stepinski (2013); the numbering is our own, ordered
-#: so that swapping '+' and '-' (classifying -z) maps code c to 12 - c for
-#: c >= 2 and keeps 1 (flat) and 6 (slope).
+#: Landform code -> class name of Jasiewicz & Stepinski (2013). Code 0 is nodata.
+#: The codes run from the lowest to the highest relative position (pit 1 ... peak
+#: 10), so a larger code means a cell higher than its surroundings and the codes
+#: can be read as ordinal; flat (5) and slope (6) sit in the middle.
 LANDFORM_CLASSES = MappingProxyType(
     {
-        1: "flat",
-        2: "peak",
-        3: "ridge",
-        4: "shoulder",
-        5: "spur",
+        1: "pit",
+        2: "valley",
+        3: "hollow",
+        4: "footslope",
+        5: "flat",
         6: "slope",
-        7: "hollow",
-        8: "footslope",
-        9: "valley",
-        10: "pit",
+        7: "spur",
+        8: "shoulder",
+        9: "ridge",
+        10: "peak",
     }
 )
 
 _ABBREVIATIONS = {
-    "FL": 1, "PK": 2, "RI": 3, "SH": 4, "SP": 5,
-    "SL": 6, "HL": 7, "FS": 8, "VL": 9, "PT": 10,
+    "PT": 1, "VL": 2, "HL": 3, "FS": 4, "FL": 5,
+    "SL": 6, "SP": 7, "SH": 8, "RI": 9, "PK": 10,
 }  # fmt: skip
 
 # Rows n_minus = 0..8, columns n_plus = 0..8 (METHODS.md §3, after

@@ -13,10 +13,7 @@ from __future__ import annotations
 import contextlib
 import json
 import math
-import os
 import re
-import shutil
-import tempfile
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -24,7 +21,8 @@ from pathlib import Path
 import numpy as np
 
 from mlsites import __version__
-from mlsites._validation import check_cell_pair
+from mlsites._files import staged_folder
+from mlsites._validation import check_cell_pair, gdal_reason
 from mlsites.errors import CRSError, InputError, OutputExistsError, VectorReadError
 from mlsites.grid import AlignedRaster, GridSpec, RasterWriter, bounded_gdal_cache, iter_windows, read_grid
 
@@ -51,7 +49,8 @@ LOCAL_LAYERS = {
     "roughness": ("max minus min of the 3 x 3 window", "metres"),
     "profile_curvature": ("curvature along the slope line, Zevenbergen & Thorne (1987), convex positive", "1/m"),
     "plan_curvature": ("curvature along the contour, Zevenbergen & Thorne (1987), convex positive", "1/m"),
-    "landform": ("geomorphon landform class, Jasiewicz & Stepinski (2013)", "class"),
+    "landform": ("geomorphon landform class, Jasiewicz & Stepinski (2013); codes from the lowest "
+                 "(1 pit) to the highest relative position (10 peak)", "class"),
 }
 #: Layers that need the whole grid in memory.
 WHOLE_GRID_LAYERS = {
@@ -160,10 +159,12 @@ def _check_settings(settings: TerrainSettings, grid: GridSpec, names: list[str],
     if any(n.startswith("tpi_") for n in names):
         cell = None if grid.is_geographic else max(_metric_res(grid))
         for r in settings.tpi_radii_m:
-            too_small = cell is not None and r < cell
-            if not (isinstance(r, (int, float)) and math.isfinite(r)) or too_small:
+            if isinstance(r, bool) or not isinstance(r, (int, float)) or not math.isfinite(r) or r <= 0:
+                raise InputError(f"TPI radius {r!r} m must be a positive number of metres; "
+                                 "give radii of at least one cell, e.g. 100,500")
+            if cell is not None and r < cell:
                 raise InputError(
-                    f"TPI radius {r} m is smaller than one cell ({cell:g} m); "
+                    f"TPI radius {r:g} m is smaller than one cell ({cell:g} m); "
                     "give radii of at least one cell"
                 )
     if settings.landform_lookup_cells < 1:
@@ -348,25 +349,29 @@ def compute_terrain(dem_path, out_dir, settings: TerrainSettings | None = None, 
             f"{', ...' if len(existing) > 3 else ''}); use --overwrite or another --out folder"
         )
     vectors = {n: Path(p) for n, p in settings.vectors.items()}
-    for n, p in list(vectors.items()) + ([("streams", Path(settings.stream_vector))] if settings.stream_vector else []):
+    for what, p in ([(f"vector layer {n!r}", p) for n, p in vectors.items()]
+                    + ([("the stream lines (stream_lines)", Path(settings.stream_vector))]
+                       if settings.stream_vector else [])):
         if not p.exists():
-            raise VectorReadError(f"{p}: vector layer {n!r} not found; check the path")
+            raise VectorReadError(f"{p}: {what} not found; check the path")
 
     local = [n for n in names if not (n in _HYDRO or n.startswith("distance_"))]
     whole = [n for n in names if n not in local]
-    out_dir.mkdir(parents=True, exist_ok=True)
-    staging = Path(tempfile.mkdtemp(prefix=".terrain-partial-", dir=out_dir))
     layers_info: dict[str, dict] = {}
     started = time.perf_counter()
-    try:
+    # terrain.json comes last: a folder with it holds every layer it lists.
+    with staged_folder(out_dir, files=[p.name for p in targets]) as staging:
+        # The DEM is read once by the windowed pass and once whole for the
+        # whole-grid layers; its valid cells are counted on the way.
         with bounded_gdal_cache(), AlignedRaster(dem_path, grid) as dem:
-            n_valid = _count_valid(dem, grid, settings)
-            if n_valid == 0:
-                raise InputError(f"{dem_path}: every cell of the DEM is nodata; nothing to derive")
+            if not _has_data(dem_path, dem, grid, settings):
+                _check_valid(0, dem)
             if local:
-                layers_info.update(_run_local(dem, grid, local, settings, staging, quiet, log))
+                info, n_valid = _run_local(dem, grid, local, settings, staging, quiet, log)
+                layers_info.update(info)
             if whole:
-                layers_info.update(_run_whole(dem, grid, whole, settings, vectors, staging, quiet, log))
+                info, n_valid = _run_whole(dem, grid, whole, settings, vectors, staging, quiet, log)
+                layers_info.update(info)
         summary = {
             "software": f"mlsites {__version__}",
             "dem": str(dem_path),
@@ -384,18 +389,34 @@ def compute_terrain(dem_path, out_dir, settings: TerrainSettings | None = None, 
             "seconds": round(time.perf_counter() - started, 3),
         }
         (staging / "terrain.json").write_text(json.dumps(summary, indent=2))
-        for path in targets:
-            os.replace(staging / path.name, path)
-    finally:
-        shutil.rmtree(staging, ignore_errors=True)
     return summary
 
 
-def _count_valid(dem, grid, settings) -> int:
-    n = 0
-    for w in iter_windows(grid, block_rows=_block_rows(grid, settings, 0)):
-        n += int(np.count_nonzero(~np.isnan(dem.read(w.core))))
-    return n
+def _has_data(dem_path, dem, grid, settings) -> bool:
+    """Whether the DEM has a valid cell, looked for before any work.
+
+    A decimated read (at most 256 x 256 cells) settles it for nearly every DEM;
+    only when it finds nothing is the DEM read in full.
+    """
+    from rasterio.enums import Resampling
+
+    from mlsites.grid import open_raster
+
+    shape = (min(grid.height, 256), min(grid.width, 256))
+    with open_raster(dem_path) as src:  # the DEM defines the grid: no alignment needed
+        sample = src.read(1, out_shape=shape, resampling=Resampling.nearest, masked=True)
+    if dem.nodata is not None:
+        sample = np.ma.masked_equal(sample, dem.nodata)
+    if np.ma.count(np.ma.masked_invalid(sample)):
+        return True
+    return any(np.count_nonzero(~np.isnan(dem.read(w.core)))
+               for w in iter_windows(grid, block_rows=_block_rows(grid, settings, 0)))
+
+
+def _check_valid(n_valid, dem):
+    if n_valid == 0:
+        raise InputError(f"{dem.path}: every cell of the DEM is nodata; nothing to derive")
+    return n_valid
 
 
 def _block_rows(grid, settings, halo):
@@ -410,6 +431,7 @@ def _run_local(dem, grid, names, settings, staging, quiet, log):
     raw = [n for n in names if not n.endswith("_std")]
     stats = {n: _Stats() for n in raw}
     seconds = dict.fromkeys(raw, 0.0)
+    n_valid = 0
     # Each writer finishes (overviews, rename) on success and removes its temporary
     # file if anything fails.
     with contextlib.ExitStack() as stack:
@@ -418,6 +440,7 @@ def _run_local(dem, grid, names, settings, staging, quiet, log):
         scratch = {}
         for w in windows:
             block = dem.read(w.padded)
+            n_valid += int(np.count_nonzero(~np.isnan(block[w.trim])))
             row0 = int(w.padded.row_off)
             cellsize = grid.cellsize(np.arange(row0, row0 + int(w.padded.height)))
             memo = {}
@@ -429,6 +452,7 @@ def _run_local(dem, grid, names, settings, staging, quiet, log):
                     stats[n].add(out)
                 writer.write(out, window=w.core)
             bar.update(1)
+    _check_valid(n_valid, dem)
     info = {}
     for n in raw:
         info[n] = _layer_info(n, stats[n].summary() if n != "landform" else {}, seconds[n], grid)
@@ -443,7 +467,7 @@ def _run_local(dem, grid, names, settings, staging, quiet, log):
         info[n] = _layer_info(n, {"mean_of_raw": s["mean"], "std_of_raw": s["std"]},
                               time.perf_counter() - t0, grid)
         log(f"{n}: {info[n]['seconds']:.1f} s")
-    return info
+    return info, n_valid
 
 
 def _standardise_file(src_path, dst_path, grid, name, mean, sd, settings):
@@ -464,10 +488,15 @@ def _run_whole(dem, grid, names, settings, vectors, staging, quiet, log):
 
     info = {}
     cellsize = grid.cellsize()
+    z = dem.read()
+    n_valid = _check_valid(int(np.count_nonzero(~np.isnan(z))), dem)
     hydro = [n for n in names if n in _HYDRO]
     if settings.stream_vector and "stream_distance" in hydro:
         hydro.remove("stream_distance")
         vectors = dict(vectors, __streams__=Path(settings.stream_vector))
+    # The DEM's nodata cells for the distance layers, kept as bits (1/8 byte per
+    # cell) so the DEM itself can be freed inside the hydrology chain.
+    nodata_bits = np.packbits(np.isnan(z)) if vectors else None
     if hydro:
         t0 = time.perf_counter()
         layer_of = {"filled": "filled_dem", "direction": "flow_direction", "accumulation": "flow_accumulation",
@@ -478,26 +507,28 @@ def _run_whole(dem, grid, names, settings, vectors, staging, quiet, log):
             # the grids later steps need (README: bytes per cell of the hydrology).
             _write_whole(staging, grid, layer_of[key], array)
 
-        t.hydrology_layers(dem.read(), cellsize, stream_threshold_km2=settings.stream_threshold_km2,
+        # Hand the only reference over: the chain frees the DEM once it is filled.
+        held = [z]
+        del z
+        t.hydrology_layers(held.pop(), cellsize, stream_threshold_km2=settings.stream_threshold_km2,
                            wanted={k for k, v in layer_of.items() if v in hydro}, on_layer=write)
         seconds = time.perf_counter() - t0
         for name in hydro:  # one chain: the time is that of all of them together
             info[name] = _layer_info(name, {"timed_together_with": hydro}, seconds, grid)
         log(f"hydrology ({', '.join(hydro)}): {seconds:.1f} s")
-    nodata = None  # the DEM's nodata cells, read once for all vector layers
+    else:
+        del z
     for vname, path in vectors.items():
         name = "stream_distance" if vname == "__streams__" else f"distance_{vname}"
         t0 = time.perf_counter()
         mask = _rasterize_vector(path, grid, vname)
         dist = t.distance_to_cells(mask, cellsize)
         del mask
-        if nodata is None:
-            nodata = np.isnan(dem.read())
-        dist[nodata] = np.nan
+        dist[np.unpackbits(nodata_bits, count=grid.n_cells).reshape(grid.shape).view(bool)] = np.nan
         _write_whole(staging, grid, name, dist)
         info[name] = _layer_info(name, {}, time.perf_counter() - t0, grid)
         log(f"{name}: {info[name]['seconds']:.1f} s")
-    return info
+    return info, n_valid
 
 
 def _write_whole(staging, grid, name, array):
@@ -512,19 +543,19 @@ def _rasterize_vector(path, grid, name):
     import geopandas as gpd
     from rasterio.features import rasterize
 
-    from mlsites.errors import VectorReadError
-
+    # The user's stream lines travel under an internal name; messages use the option's.
+    what = "the stream lines (stream_lines)" if name == "__streams__" else f"vector layer {name!r}"
     try:
         gdf = gpd.read_file(path)
     except Exception as exc:  # pyogrio raises several types for unreadable files
-        raise VectorReadError(f"{path}: cannot read vector layer {name!r} ({str(exc).splitlines()[0]})") from None
+        raise VectorReadError(f"{path}: cannot read {what} ({gdal_reason(exc)}); give a GeoPackage, "
+                              "GeoJSON or Shapefile") from None
     if gdf.crs is None:
-        raise CRSError(f"{path}: vector layer {name!r} has no CRS; assign one before using it")
+        raise CRSError(f"{path}: {what} has no CRS; assign one before using it (in a GIS, or with "
+                       "ogr2ogr -a_srs EPSG:xxxx)")
     gdf = gdf[~(gdf.geometry.is_empty | gdf.geometry.isna())].to_crs(grid.crs)
     mask = rasterize(((g, 1) for g in gdf.geometry), out_shape=grid.shape, transform=grid.transform,
                      fill=0, all_touched=True, dtype="uint8").astype(bool)
     if not mask.any():
-        raise InputError(
-            f"{path}: no feature of vector layer {name!r} falls on the study grid; check its CRS and extent"
-        )
+        raise InputError(f"{path}: no feature of {what} falls on the study grid; check its CRS and extent")
     return mask

@@ -51,6 +51,25 @@ def _tree_rss_mb(pid):
     return total
 
 
+def run_watched(cmd, env=None, interval=0.1):
+    """Run ``cmd``; return (returncode, stderr, seconds, peak summed RSS of its process tree in MB)."""
+    peak = [0.0]
+    t0 = time.perf_counter()
+    proc = subprocess.Popen(cmd, env=env, stderr=subprocess.PIPE, text=True)
+
+    def watch():
+        while proc.poll() is None:
+            peak[0] = max(peak[0], _tree_rss_mb(proc.pid))
+            time.sleep(interval)
+
+    watcher = threading.Thread(target=watch, daemon=True)
+    watcher.start()
+    _, stderr = proc.communicate()
+    seconds = time.perf_counter() - t0
+    watcher.join()
+    return proc.returncode, stderr, seconds, peak[0]
+
+
 def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--jobs", type=int, default=None, help="passed to mlsites run --jobs")
@@ -60,29 +79,16 @@ def main():
     if args.jobs:
         cmd += ["--jobs", str(args.jobs)]
     env = dict(os.environ, PYTHONPATH=os.pathsep.join(filter(None, [str(ROOT), os.environ.get("PYTHONPATH")])))
-    peak_tree = [0.0]
-    t0 = time.perf_counter()
-    proc = subprocess.Popen(cmd, env=env, stderr=subprocess.PIPE, text=True)
-
-    def watch():
-        while proc.poll() is None:
-            peak_tree[0] = max(peak_tree[0], _tree_rss_mb(proc.pid))
-            time.sleep(0.1)
-
-    watcher = threading.Thread(target=watch, daemon=True)
-    watcher.start()
-    _, stderr = proc.communicate()
-    seconds = time.perf_counter() - t0
-    watcher.join()
-    if proc.returncode != 0:
-        sys.exit(f"demo run failed with status {proc.returncode}:\n{stderr[-2000:]}")
+    returncode, stderr, seconds, peak_tree = run_watched(cmd, env)
+    if returncode != 0:
+        sys.exit(f"demo run failed with status {returncode}:\n{stderr[-2000:]}")
     peak_mb = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024.0
     manifest = json.loads((ROOT / "runs" / "bench" / "manifest.json").read_text())
     print(json.dumps({
         "benchmark": "demo experiment, all five learners, --fresh",
-        "seconds": round(seconds, 1), "peak_mb": round(peak_mb, 1), "peak_tree_mb": round(peak_tree[0], 1),
+        "seconds": round(seconds, 1), "peak_mb": round(peak_mb, 1), "peak_tree_mb": round(peak_tree, 1),
         "seconds_ratio": round(seconds / TARGET_SECONDS, 3),
-        "memory_ratio": round(max(peak_mb, peak_tree[0]) / TARGET_MB, 3),
+        "memory_ratio": round(max(peak_mb, peak_tree) / TARGET_MB, 3),
         "stages": manifest["seconds"], "learners": manifest["learners"], "cpu_count": os.cpu_count(),
     }))
 

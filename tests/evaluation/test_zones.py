@@ -7,7 +7,7 @@ from mlsites.errors import InputError
 from mlsites.evaluation import (
     NODATA_ZONE,
     assign_zones,
-    indicative_values,
+    relative_site_density,
     kvamme_gain,
     zone_density_gini,
     zone_gains,
@@ -44,9 +44,9 @@ def example_landscape():
 # --------------------------------------------------------------------- METHODS §5 zone example
 
 
-def test_indicative_values_and_gains_methods_example():
+def test_relative_site_density_and_gains_methods_example():
     # METHODS.md §5: Kj = (5, 1.2, 0.5, 0.142857), zone gains (0.8, 0.166667, -1, -6)
-    np.testing.assert_allclose(indicative_values(SITES, AREA), [5, 1.2, 0.5, 0.142857], rtol=0, atol=TOL)
+    np.testing.assert_allclose(relative_site_density(SITES, AREA), [5, 1.2, 0.5, 0.142857], rtol=0, atol=TOL)
     np.testing.assert_allclose(zone_gains(SITES, AREA), [0.8, 0.166667, -1, -6], rtol=0, atol=TOL)
     # METHODS.md §5: cumulative gain top-1 = 0.8, top-2 = 0.5625
     cumulative = zone_gains(SITES, AREA, cumulative=True)

@@ -49,7 +49,7 @@ def test_all_problems_reported_together_with_lines(files):
     with pytest.raises(ConfigError) as err:
         load_experiment(_write(files / "bad.toml", text))
     msg = str(err.value)
-    assert "4 problem(s)" in msg or "5 problem(s)" in msg
+    assert "4 problems" in msg or "5 problems" in msg
     assert "bad.toml:2: [study.dem] file not found" in msg
     assert "bad.toml:3: [study.seed] expected whole number" in msg
     assert "bad.toml:5: [folds.method] 'checkerboard' is not one of" in msg
@@ -84,3 +84,58 @@ def test_impossible_combinations(files):
     msg = str(err.value)
     for part in ("effort_field", "buffer_m", "must increase", "unknown learner 'oracle'"):
         assert part in msg
+
+
+def test_lines_point_at_the_right_table_and_file(files):
+    # issue 7: `path` appears in several tables; keys of an extends base live in the
+    # base file; exclusion_m problems are filed under exclusion_m. Line numbers are
+    # counted by hand in the texts below.
+    (files / "soil.tif").write_bytes(b"")
+    _write(files / "base.toml",
+           '[study]\n'                      # 1
+           'dem = "dem.tif"\n'              # 2
+           '[inputs]\n'                     # 3
+           'soil = { path = "soil.tif", kind = "categorical" }\n'  # 4
+           '[sites]\n'                      # 5
+           'path = "gone.gpkg"\n')          # 6
+    _write(files / "variant.toml",
+           'extends = "base.toml"\n'        # 1
+           '[inputs]\n'                     # 2
+           'rain = { path = "rain.tif" }\n'  # 3
+           '[sampling]\n'                   # 4
+           'site_buffer_m = 10\n'           # 5
+           'exclusion_m = -5\n')            # 6
+    with pytest.raises(ConfigError) as err:
+        load_experiment(files / "variant.toml")
+    msg = str(err.value)
+    assert f"{files / 'base.toml'}:6: [sites.path] file not found" in msg
+    assert f"{files / 'variant.toml'}:3: [inputs.rain.path] file not found" in msg
+    assert f"{files / 'variant.toml'}:6: [sampling.exclusion_m] -5 m" in msg
+    assert "[sampling.site_buffer_m]" not in msg
+    exp = load_experiment(_write(files / "ok.toml", 'extends = "base.toml"\n[sites]\npath = "sites.gpkg"\n'))
+    assert exp.where("inputs.soil.kind") == f"{files / 'base.toml'}:4"
+    assert exp.where("sites.path") == f"{files / 'ok.toml'}:3"
+    assert exp.where("study.dem") == f"{files / 'base.toml'}:2"
+
+
+def test_missing_extends_target_names_the_file_that_named_it(files):
+    _write(files / "v.toml", '# a variant\nextends = "nowhere.toml"\n[study]\nseed = 1\n')
+    with pytest.raises(ConfigError, match=r"v\.toml:2: extends = \"nowhere\.toml\": file .*nowhere\.toml not found"):
+        load_experiment(files / "v.toml")
+
+
+def test_explain_section_defaults_and_checks(files):
+    from mlsites.explain import EXPLAIN_DEFAULTS
+
+    exp = load_experiment(_write(files / "e.toml", '[study]\ndem = "dem.tif"\n[sites]\npath = "sites.gpkg"\n'))
+    # the schema's defaults are the stage's own
+    assert {k: exp["explain"][k] for k in exp["explain"]} == {k: EXPLAIN_DEFAULTS[k] for k in exp["explain"]}
+    text = ('[study]\ndem = "dem.tif"\n[sites]\npath = "sites.gpkg"\n[explain]\nn_explain = 0\n'
+            'correlation_threshold = 1.5\nsurvey_layers = [3]\n')
+    with pytest.raises(ConfigError) as err:
+        load_experiment(_write(files / "bad_explain.toml", text))
+    msg = str(err.value)
+    assert "3 problems" in msg
+    assert "bad_explain.toml:6: [explain.n_explain] must be at least 1" in msg
+    assert "[explain.correlation_threshold] must lie in (0, 1)" in msg
+    assert "[explain.survey_layers] expected a list of layer names" in msg

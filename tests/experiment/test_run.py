@@ -22,7 +22,7 @@ from mlsites.experiment._demo import write_demo_data
 from mlsites.experiment._models import load_model, save_model
 from mlsites.experiment._run import check_input_layers, sample_experiment
 from mlsites.grid import read_grid
-from mlsites.learners import fit_learner, make_learner
+from mlsites.learners import balanced_draws_share, fit_learner, make_learner
 
 METRIC_FILES = ("metrics_by_fold.csv", "metrics_summary.csv", "zones.csv", "curves.csv")
 RUN_FILES = METRIC_FILES + ("capture_curves.png", "roc_curves.png", "manifest.json", "run.log",
@@ -129,12 +129,75 @@ def test_model_cards_describe_the_refitted_models(tmp_path, data):
         row = summary.set_index("learner").loc[learner]
         assert card["cross_validated"]["auc_mean"] == pytest.approx(row["auc_mean"], rel=1e-9)  # csv uses %.10g
         # reference: the same preset fitted here through the public learner API
+        n_sites = samples.loc[samples["label"] == 1, "site_id"].nunique()
+        forest = {"n_estimators": 15, "max_samples": balanced_draws_share(samples["weight"], n_sites)}
         reference = fit_learner(
             make_learner(learner, random_state=3, categorical_features=["soil"],
-                         **({"n_estimators": 15} if learner == "random_forest" else {})),
+                         **(forest if learner == "random_forest" else {})),
             samples[card["features"]], samples["label"], sample_weight=samples["weight"])
         X = samples[card["features"]]
         np.testing.assert_array_equal(saved.estimator.predict_proba(X), reference.predict_proba(X))
+
+
+def test_run_forest_trees_draw_two_rows_per_site(tmp_path, data):
+    # Valavi et al. (2021): each tree of a down-sampled forest sees about as many
+    # presences as there are sites and as many background points. The sample table's
+    # weights average 1, so the run must not leave max_samples at 1.0 (which would
+    # draw as many rows as the table holds: the forest then memorises sites again).
+    exp = write_experiment(tmp_path, data, use=["random_forest"])
+    result = run_experiment(exp, quiet=True, n_jobs=1)
+    samples = pd.read_parquet(result.run_dir / "samples" / "samples.parquet")
+    n_sites = samples.loc[samples["label"] == 1, "site_id"].nunique()
+    forest = load_model(result.models_dir / "random_forest.card.json").estimator.named_steps["model"]
+    label = samples["label"].to_numpy()
+    for drawn in forest.estimators_samples_:
+        assert abs(drawn.size - 2 * n_sites) <= 1
+        # site draws ~ Binomial(2 n_sites, 1/2): within 4 sd of n_sites
+        assert abs(int(label[drawn].sum()) - n_sites) <= 4 * np.sqrt(n_sites / 2)
+
+
+def test_run_maps_the_best_learner_and_the_baseline_with_complete_cards(tmp_path, data):
+    exp = write_experiment(tmp_path, data, use=["mlp", "logistic", "fuzzy"])
+    result = run_experiment(exp, quiet=True, n_jobs=1)
+    best = result.summary["learner"].iloc[0]
+    expected = sorted({best, "fuzzy"})
+    assert sorted(p.name for p in (result.run_dir / "maps").iterdir()) == expected
+    assert result.manifest["maps"] == expected
+    for learner in expected:
+        folder = result.run_dir / "maps" / learner
+        assert sorted(p.name for p in folder.iterdir()) == ["applicable.tif", "dissimilarity.tif", "map.json", "potential.tif",
+                                                                   "spread.tif", "zones.tif"]
+        summary = json.loads((folder / "map.json").read_text())
+        # map.json names the card where it lives after the run, with its hash (hashlib reference)
+        card_path = result.models_dir / f"{learner}.card.json"
+        assert summary["model_card"]["path"] == str(card_path)
+        assert summary["model_card"]["sha256"] == hashlib.sha256(card_path.read_bytes()).hexdigest()
+    zones = pd.read_csv(result.run_dir / "zones.csv")
+    for learner in ("mlp", "logistic", "fuzzy"):
+        card = json.loads((result.models_dir / f"{learner}.card.json").read_text())
+        # every feature has a layer entry whose hash is the file's (hashlib reference)
+        assert [e["name"] for e in card["feature_layers"]] == card["features"]
+        for e in card["feature_layers"]:
+            assert hashlib.sha256(Path(e["path"]).read_bytes()).hexdigest() == e["sha256"], e["name"]
+        assert card["terrain"]["dem"]["sha256"] == hashlib.sha256((data / "dem.tif").read_bytes()).hexdigest()
+        assert card["terrain"]["settings"]["layers"] == ["slope", "northness", "stream_distance"]
+        assert card["terrain"]["stream_lines"]["path"] == str(data / "streams.gpkg")
+        # three folds, three fold model files, each vouched for by its hash
+        assert [f["file"] for f in card["fold_models"]] == [f"{learner}.fold{k}.skops" for k in range(3)]
+        for f in card["fold_models"]:
+            assert hashlib.sha256((result.models_dir / f["file"]).read_bytes()).hexdigest() == f["sha256"]
+        rows = zones[zones["learner"] == learner]
+        assert [z["name"] for z in card["zones"]["zones"]] == ["high", "medium"]
+        assert [z["area_share"] for z in card["zones"]["zones"]] == pytest.approx(rows["area_share"].iloc[:2].tolist())
+
+
+def test_maps_option_is_checked(tmp_path, data):
+    exp = write_experiment(tmp_path, data, use=["logistic"], extra='[maps]\nlearners = "every"\n')
+    with pytest.raises(ConfigError, match=r"\[maps.learners\] 'every' is not one of best_and_baseline"):
+        load_experiment(exp)
+    exp = write_experiment(tmp_path, data, use=["logistic"], extra='[maps]\nlearners = ["mlp"]\n', name="b.toml")
+    with pytest.raises(ConfigError, match=r"\['mlp'\] not among the learners used"):
+        load_experiment(exp)
 
 
 def test_existing_run_is_not_clobbered_and_fresh_replaces_it(tmp_path, data):
@@ -184,7 +247,7 @@ def test_failures_leave_nothing_behind(tmp_path, data, case):
         match = r"(?i)fold \d+ has no (presences|site)"
     else:
         exp = write_experiment(tmp_path, tmp_path, use=["logistic"], extra="[learners.logistic]\nn_trees = 5\n")
-        match = "unknown parameter"
+        match = r"\[learners.logistic\] unknown setting 'n_trees'; settings of logistic are .*\bpenalty_strength\b"
     for name in ("dem.tif", "soil.tif", "streams.gpkg", "sites.gpkg"):
         target = tmp_path / name
         if not target.exists():
@@ -255,9 +318,10 @@ def test_sample_experiment_writes_and_protects_its_folder(tmp_path, data):
     assert samples.folder == tmp_path / "runs" / "tiny" / "samples"
     assert {"samples.parquet", "folds.csv", "dropped_records.csv", "sampling.json"} <= {
         p.name for p in samples.folder.iterdir()}
-    # presence weights: each site sums to one (METHODS.md §7), up to the 2**-30 rounding
+    # presence weights: every site sums to the same total (METHODS.md §7), weights
+    # averaging 1 (issue 7)
     per_site = samples.table[samples.table["label"] == 1].groupby("site_id")["weight"].sum()
-    np.testing.assert_allclose(per_site, 1.0, atol=1e-7)
+    np.testing.assert_allclose(per_site, len(samples.table) / (2 * len(per_site)), rtol=1e-7)
     with pytest.raises(OutputExistsError, match="--fresh"):
         sample_experiment(exp, quiet=True)
 
@@ -317,3 +381,97 @@ def test_buffered_leave_one_site_out_runs_end_to_end(tmp_path, data):
     samples = pd.read_parquet(result.run_dir / "samples" / "samples.parquet")
     assert len(per_site) == samples.loc[samples["label"] == 1, "site_id"].nunique()
     assert (per_site["n_test_sites"] == 1).all()
+    # each site is scored against the background within its buffer (issue 7), and the
+    # log says so with the number of cells
+    assert (per_site["landscape"] == "within_buffer").all()
+    assert "background within buffer_m = 150 m" in (result.run_dir / "run.log").read_text()
+
+
+def test_editing_a_shapefile_dbf_invalidates_the_sample_cache(tmp_path, data):
+    # issue 7: the .dbf holds the site ids; a cache keyed on the .shp alone reused a
+    # stale table. Only the .dbf is replaced here (by one written elsewhere).
+    import geopandas as gpd
+
+    sites = gpd.read_file(data / "sites.gpkg")
+    sites.to_file(tmp_path / "sites.shp")
+    renamed = sites.assign(site_id=["R" + s[1:] for s in sites["site_id"]])
+    (tmp_path / "other").mkdir()
+    renamed.to_file(tmp_path / "other" / "sites.shp")
+    exp = write_experiment(tmp_path, data, sites=str(tmp_path / "sites.shp"), use=["fuzzy"])
+    first = sample_experiment(exp, out_dir=tmp_path / "a", quiet=True)
+    (tmp_path / "sites.dbf").write_bytes((tmp_path / "other" / "sites.dbf").read_bytes())
+    lines = []
+    second = sample_experiment(exp, out_dir=tmp_path / "b", quiet=True, log=lines.append)
+    assert not any(line.startswith("sample table: cached") for line in lines)
+    ids = lambda s: set(s.table.loc[s.table["label"] == 1, "site_id"])  # noqa: E731
+    assert ids(second) == {"R" + i[1:] for i in ids(first)}
+    # unchanged inputs: the cache is used
+    lines.clear()
+    sample_experiment(exp, out_dir=tmp_path / "c", quiet=True, log=lines.append)
+    assert any(line.startswith("sample table: cached") for line in lines)
+
+
+def _two_band(data, path):
+    """soil.tif's codes as band 1 and a continuous field (DEM heights / 7) as band 2."""
+    with rasterio.open(data / "soil.tif") as src:
+        profile, codes = src.profile, src.read(1)
+    with rasterio.open(data / "dem.tif") as src:
+        heights = src.read(1)
+    profile.update(count=2, dtype="float32", nodata=-9999.0)
+    with rasterio.open(path, "w", **profile) as dst:
+        dst.write(codes.astype("float32"), 1)
+        dst.write((heights / 7.0).astype("float32"), 2)
+    return path
+
+
+def test_band_asked_for_is_the_band_read(tmp_path, data):
+    # issue 7: band = 2 was read from band 1. Reference: rasterio's own read of band 2.
+    layers = _two_band(data, tmp_path / "two.tif")
+    write_experiment(tmp_path, data, use=["fuzzy"])
+    (tmp_path / "b2.toml").write_text(f'extends = "tiny.toml"\n[study]\nname = "b2"\n[inputs]\n'
+                                      f'soil = {{ path = "{layers}", kind = "continuous", band = 2 }}\n')
+    samples = sample_experiment(tmp_path / "b2.toml", quiet=True)
+    with rasterio.open(layers) as src:
+        band2 = src.read(2)
+    t = samples.table
+    np.testing.assert_array_equal(t["soil"].to_numpy(), band2[t["row"], t["col"]].astype(np.float64))
+
+
+def test_band_that_does_not_exist_is_refused_before_any_work(tmp_path, data):
+    from click.testing import CliRunner
+
+    from mlsites.cli.main import cli
+
+    write_experiment(tmp_path, data, use=["fuzzy"])
+    (tmp_path / "b5.toml").write_text(f'extends = "tiny.toml"\n[study]\nname = "b5"\n[inputs]\n'
+                                      f'soil = {{ path = "{data / "soil.tif"}", kind = "categorical", band = 5 }}\n')
+    result = CliRunner().invoke(cli, ["run", str(tmp_path / "b5.toml"), "--quiet"])
+    assert result.exit_code == 2, result.output
+    lines = result.stderr.strip().splitlines()
+    assert len(lines) == 1 and "Traceback" not in result.output
+    assert f"b5.toml:5: [inputs.soil] band = 5, but {data / 'soil.tif'} has 1 band(s)" in lines[0]
+    assert not (tmp_path / "runs").exists()  # before any work: not even the cache
+
+
+@pytest.mark.parametrize("extra, fragment", [
+    # the preset's own constraint, checked by scikit-learn's parameter validation
+    ("[learners.logistic]\npenalty_strength = -1\n",
+     "[learners.logistic] penalty_strength = -1 is not allowed: it must be a float in the range [0.0, inf)"),
+    ("[learners.logistic]\nrandom_state = 1\n", "random_state is set by the run; use [study] seed"),
+    ("[learners.logistic]\nsplines = 1\n", "[learners.logistic] these settings cannot be fitted: splines"),
+])
+def test_invalid_learner_settings_are_one_line_before_any_work(tmp_path, data, extra, fragment):
+    from click.testing import CliRunner
+
+    from mlsites.cli.main import cli
+
+    exp = write_experiment(tmp_path, data, use=["logistic", "fuzzy"], extra=extra)
+    key = extra.splitlines()[1].split(" =")[0]
+    line = exp.read_text().splitlines().index(extra.splitlines()[1]) + 1
+    result = CliRunner().invoke(cli, ["run", str(exp), "--quiet"])
+    assert result.exit_code == 2, result.output
+    lines = result.stderr.strip().splitlines()
+    assert len(lines) == 1 and "Traceback" not in result.output, result.stderr
+    where = f"{exp}:{line}" if key in ("penalty_strength", "random_state") else f"{exp}:"
+    assert lines[0].startswith(f"mlsites: error: {where}") and fragment in lines[0], lines[0]
+    assert not (tmp_path / "runs").exists()

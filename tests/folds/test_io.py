@@ -47,7 +47,7 @@ def test_round_trip(tmp_path, assignment):
     assert table.blocks["block_id"].tolist() == res.blocks["block_id"].tolist()
     assert table.blocks["fold"].tolist() == res.blocks["fold"].tolist()
     assert table.blocks.geom_equals_exact(res.blocks.geometry, tolerance=1e-9).all()
-    assert table.meta["method"] == "spatial_blocks" and table.meta["n_samples"] == 300
+    assert table.meta["method"] == "square_blocks" and table.meta["n_samples"] == 300
 
 
 def test_precomputed_folds_from_dir_follow_the_learner_order(tmp_path, assignment):

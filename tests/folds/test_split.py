@@ -284,3 +284,17 @@ def test_random_folds_flatter_a_random_forest_on_autocorrelated_data():
     blocks = SpatialBlockFolds(x, y, site_id=site, block_size=15 * cell, n_splits=5, random_state=0)
     auc_block = _cv_auc(blocks, X, label)
     assert auc_random - auc_block > 0.05
+
+
+def test_each_fold_method_has_one_name_in_files_and_descriptions():
+    # issue 7: the name a splitter writes into fold files is the one experiment files use
+    from mlsites.experiment._config import FOLD_METHODS
+
+    rng = np.random.default_rng(0)
+    x, y = rng.uniform(0, 1000, (2, 60))
+    site = np.where(np.arange(60) < 20, np.arange(60) % 10, -1)
+    names = [SpatialBlockFolds(x, y, site_id=site, block_size=250, n_splits=2, kind=kind).describe()["method"]
+             for kind in ("square", "hexagon")]
+    names += [BufferedLeaveOneSiteOut(x, y, site, buffer=10.0).describe()["method"],
+              EnvironmentalFolds(2).describe()["method"], RandomFolds(2).describe()["method"]]
+    assert names == list(FOLD_METHODS)

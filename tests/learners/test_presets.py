@@ -31,9 +31,12 @@ from mlsites.learners import (
     LEARNERS,
     FuzzySuitability,
     LayerEncoder,
+    MeanLossLogisticRegression,
     fit_learner,
     make_learner,
 )
+from mlsites.learners._presets import DEFAULT_PENALTY_STRENGTH
+from mlsites.sampling import sample_weights
 
 # small settings so the whole module runs in seconds
 FAST = {
@@ -130,8 +133,9 @@ def test_unknown_category_at_predict(name, table):
     proba = model.predict_proba(unseen)
     assert np.all(np.isfinite(proba)) and np.all((proba >= 0) & (proba <= 1))
     if name == "fuzzy":
-        # no site lies in an unseen category, so its membership and the AND are 0
-        np.testing.assert_array_equal(proba[:, 1], 0.0)
+        # no site lies in an unseen category: its membership is the floor
+        mu = model[-1].predict_memberships(unseen)
+        np.testing.assert_array_equal(mu[:, 1], model[-1].membership_floor)
 
 
 @pytest.mark.parametrize("name", sorted(FAST))
@@ -177,7 +181,9 @@ def test_logistic_zero_weights_equal_dropping_rows(table):
         Z[:, n_cat:] = scaler.transform(Z[:, n_cat:])
         return Z
 
-    ref = LogisticRegression(tol=1e-10, max_iter=10_000).fit(design(frame)[keep], y[keep])
+    # the preset's penalty is lambda on the mean loss: C = 1 / (lambda * sum of weights)
+    C = 1.0 / (DEFAULT_PENALTY_STRENGTH * keep.sum())
+    ref = LogisticRegression(C=C, tol=1e-10, max_iter=10_000).fit(design(frame)[keep], y[keep])
     np.testing.assert_allclose(
         model.predict_proba(probe), ref.predict_proba(design(probe)), rtol=0, atol=1e-6
     )
@@ -200,9 +206,8 @@ def test_logistic_splines_match_reference(table):
     spline = SplineTransformer(n_knots=5, degree=3, include_bias=False).fit(
         scaler.transform(X[keep])
     )
-    ref = LogisticRegression(tol=1e-10, max_iter=10_000).fit(
-        spline.transform(scaler.transform(X[keep])), y[keep]
-    )
+    ref = LogisticRegression(C=1.0 / (DEFAULT_PENALTY_STRENGTH * keep.sum()), tol=1e-10,
+                             max_iter=10_000).fit(spline.transform(scaler.transform(X[keep])), y[keep])
     Xp = probe[["elevation", "water_distance"]].to_numpy()
     np.testing.assert_allclose(
         model.predict_proba(Xp),
@@ -239,7 +244,7 @@ def test_weights_reach_the_final_estimator(name, table):
             frame, slice(None), OneHotEncoder(handle_unknown="ignore", sparse_output=False)
         )
         if name == "random_forest":
-            ref = RandomForestClassifier(n_estimators=15, random_state=0)
+            ref = RandomForestClassifier(n_estimators=15, max_samples=1.0, random_state=0)  # the preset
             design = layout
         else:
             scaler = StandardScaler().fit(num, sample_weight=w)
@@ -263,8 +268,8 @@ def test_weights_reach_the_final_estimator(name, table):
 def test_fuzzy_preset_weights_match_estimator(table):
     frame, y, w, probe = table
     w = w * np.linspace(0.1, 2.0, len(w))
-    model = fit_learner(_make("fuzzy", operator="gamma", gamma=0.5), frame, y, w)
-    ref = FuzzySuitability(categorical_features=["landform"], operator="gamma", gamma=0.5)
+    model = fit_learner(_make("fuzzy"), frame, y, w)
+    ref = FuzzySuitability(categorical_features=["landform"])
     ref.fit(frame, y, sample_weight=w)
     np.testing.assert_array_equal(model.predict_proba(probe), ref.predict_proba(probe))
 
@@ -319,6 +324,83 @@ def test_fit_learner_rejects_bad_weights(weights, match, table):
         fit_learner(_make("logistic"), frame, y, weights)
 
 
+# -- the logistic penalty does not depend on the study size ------------------------
+
+
+def _glmnet_reference(Z, y, w, lam):
+    """Minimise (1/sum w) sum w logloss + lam/2 ||beta||^2 (intercept unpenalised) with scipy."""
+    from scipy.optimize import minimize
+    from scipy.special import expit, log_expit
+
+    def objective(theta):
+        eta = theta[0] + Z @ theta[1:]
+        loss = -(y * log_expit(eta) + (1 - y) * log_expit(-eta))
+        grad_eta = (expit(eta) - y) * w / w.sum()
+        value = (w * loss).sum() / w.sum() + 0.5 * lam * theta[1:] @ theta[1:]
+        grad = np.concatenate(([grad_eta.sum()], Z.T @ grad_eta + lam * theta[1:]))
+        return value, grad
+
+    res = minimize(objective, np.zeros(Z.shape[1] + 1), jac=True, method="BFGS",
+                   options={"gtol": 1e-12, "maxiter": 10_000})
+    return res.x
+
+
+@pytest.mark.parametrize("lam", [1e-3, 0.05])
+def test_mean_loss_logistic_matches_glmnet_objective(lam, table):
+    # reference: the penalised objective of Friedman, Hastie & Tibshirani (2010,
+    # J. Stat. Softw. 33(1), eq. 1 with alpha = 0), minimised directly by scipy BFGS
+    frame, y, w, _ = table
+    Z = StandardScaler().fit_transform(frame[["elevation", "water_distance"]].to_numpy())
+    w = w * np.linspace(0.5, 1.5, len(w))
+    model = MeanLossLogisticRegression(penalty_strength=lam, tol=1e-12, max_iter=10_000).fit(Z, y, w)
+    theta = _glmnet_reference(Z, y.astype(float), w, lam)
+    np.testing.assert_allclose(model.intercept_, theta[:1], rtol=0, atol=1e-6)
+    np.testing.assert_allclose(model.coef_[0], theta[1:], rtol=0, atol=1e-6)
+    assert model.C_ == pytest.approx(1.0 / (lam * w.sum()), rel=1e-12)
+
+
+def _study(rng, prefix):
+    """Invented presence-background table with multi-cell sites and one categorical layer."""
+    n_sites = 25
+    cells = rng.integers(1, 6, n_sites)
+    site_id = np.repeat([f"{prefix}{i}" for i in range(n_sites)], cells)
+    n_bg = 240
+    n = site_id.size + n_bg
+    label = np.r_[np.ones(site_id.size, int), np.zeros(n_bg, int)]
+    frame = pd.DataFrame({
+        "elevation": rng.normal(250.0, 40.0, n) + 30.0 * label,
+        "landform": rng.choice(["ridge", "slope", "valley"], n),
+        "water_distance": rng.gamma(2.0, 150.0, n) * np.where(label == 1, 0.6, 1.0),
+    })
+    return frame, label, np.r_[site_id, np.full(n_bg, "", dtype=object)]
+
+
+def test_logistic_fit_unchanged_when_the_study_is_duplicated(global_random_seed):
+    # Issue 7: the same sites twice (ids renamed) and the background twice must give the
+    # same fit; the reference is the fit on the single study (tol 1e-6: two lbfgs runs
+    # on different data, each converged to 1e-12).
+    rng = np.random.default_rng(global_random_seed)
+    frame, label, site_id = _study(rng, "s")
+    double = pd.concat([frame, frame], ignore_index=True)
+    label2 = np.r_[label, label]
+    site_id2 = np.r_[site_id, np.where(label == 1, np.char.add("copy_", site_id.astype(str)), "")]
+    w1, w2 = sample_weights(label, site_id), sample_weights(label2, site_id2)
+    settings = dict(random_state=0, categorical_features=["landform"], tol=1e-12, max_iter=10_000)
+    one = fit_learner(make_learner("logistic", **settings), frame, label, w1)
+    two = fit_learner(make_learner("logistic", **settings), double, label2, w2)
+    np.testing.assert_allclose(two[-1].coef_, one[-1].coef_, rtol=0, atol=1e-6)
+    np.testing.assert_allclose(two[-1].intercept_, one[-1].intercept_, rtol=0, atol=1e-6)
+    probe = frame.iloc[::7]
+    np.testing.assert_allclose(two.predict_proba(probe), one.predict_proba(probe), rtol=0, atol=1e-6)
+    # the comparison can fail: a penalty on the summed loss (scikit-learn's C = 1 on
+    # the same weights) shrinks the single study more than the double one
+    fixed = dict(C=1.0, tol=1e-12, max_iter=10_000)
+    enc = LayerEncoder(["landform"], scale=True)
+    a = LogisticRegression(**fixed).fit(enc.fit_transform(frame, sample_weight=w1), label, sample_weight=w1)
+    b = LogisticRegression(**fixed).fit(enc.fit_transform(double, sample_weight=w2), label2, sample_weight=w2)
+    assert np.abs(a.coef_ - b.coef_).max() > 1e-4
+
+
 # -- make_learner options and errors -------------------------------------------------
 
 
@@ -330,6 +412,9 @@ def test_fit_learner_rejects_bad_weights(weights, match, table):
         ("mlp", {"splines": 4}, "unknown parameter"),
         ("logistic", {"splines": 1}, "splines must be 0"),
         ("logistic", {"categorical_features": [-1]}, "negative column index"),
+        ("logistic", {"C": 1.0}, "takes penalty_strength, not C"),
+        ("logistic", {"penalty_strength": -1.0, "categorical_features": ["landform"]},
+         "penalty_strength must be a number >= 0"),
     ],
 )
 def test_make_learner_errors(name, kwargs, match, table):
@@ -387,6 +472,13 @@ def test_encoder_layout_and_zero_weights(table):
     ]
 )
 def test_encoder_sklearn_compatible(estimator, check):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        check(estimator)
+
+
+@parametrize_with_checks([MeanLossLogisticRegression()])
+def test_mean_loss_logistic_sklearn_compatible(estimator, check):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", ConvergenceWarning)
         check(estimator)

@@ -1,4 +1,4 @@
-"""Tests of background sampling (mlsites.sampling.sample_background, balance_weights)."""
+"""Tests of background sampling (mlsites.sampling.sample_background, balance_weights, sample_weights)."""
 
 import io
 import warnings
@@ -21,7 +21,7 @@ from mlsites.errors import (
     VectorReadError,
 )
 from mlsites.grid import GridSpec
-from mlsites.sampling import balance_weights, sample_background
+from mlsites.sampling import balance_weights, sample_background, sample_weights
 
 X0, Y0, CELL = 2000.0, 8000.0, 10.0
 # Significance level of the loose, seeded goodness-of-fit checks (common practice: a test
@@ -52,6 +52,26 @@ def test_balance_weights_methods_check_value():
         balance_weights(3.0, 0)
     with pytest.raises(InputError, match="presence_weight_total=0"):
         balance_weights(0, 10)
+
+
+def test_sample_weights_ratios_mean_one_and_duplication():
+    # METHODS.md §7 check values: sites of 12, 3 and 1 cells weigh 1/12, 1/3 and 1 per
+    # cell (each site 1 in total) and 10 000 background cells 3/10 000 each, before the
+    # common factor that makes the mean weight 1 (n / (2 * n_sites) = 10 016 / 6).
+    label = np.r_[np.ones(16, int), np.zeros(10_000, int)]
+    site_id = np.r_[["a"] * 12, ["b"] * 3, ["c"], [""] * 10_000].astype(object)
+    w = sample_weights(label, site_id)
+    factor = 10_016 / 6
+    np.testing.assert_allclose(w[:12], factor * 0.083333, rtol=1e-5)
+    np.testing.assert_allclose(w[12:15], factor * 0.333333, rtol=1e-5)
+    assert w[15] == pytest.approx(factor * 1.0, rel=1e-12)
+    np.testing.assert_allclose(w[16:], factor * 0.0003, rtol=1e-12)
+    assert w.mean() == pytest.approx(1.0, rel=1e-12)
+    # the same sites twice under new ids and the background twice: every row keeps its weight
+    twice = sample_weights(np.r_[label, label], np.r_[site_id, np.char.add("x", site_id.astype(str))])
+    np.testing.assert_allclose(twice, np.r_[w, w], rtol=1e-12)
+    with pytest.raises(InputError, match="both are needed"):
+        sample_weights(np.ones(3, int), ["a", "b", "c"])
 
 
 @pytest.mark.parametrize("n", [1, 200, 1500])

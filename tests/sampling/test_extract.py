@@ -106,3 +106,18 @@ def test_read_valid_mask(grid, surface, tmp_path):
     mask = read_valid_mask(path, grid, block_rows=9)
     np.testing.assert_array_equal(mask, ~np.isnan(surface))
     assert mask.dtype == bool
+
+
+def test_band_of_each_layer(tmp_path, grid, surface, samples):
+    # Band 2 holds the analytic plane, band 1 its negative; the band asked for is read.
+    path = tmp_path / "two.tif"
+    with rasterio.open(path, "w", driver="GTiff", width=grid.width, height=grid.height, count=2,
+                       dtype="float32", crs=grid.crs, transform=grid.transform, nodata=np.nan) as dst:
+        dst.write(-surface, 1)
+        dst.write(surface, 2)
+    rows, cols = samples
+    got = extract_values({"plane": path, "negative": path}, rows, cols, grid, bands={"plane": 2})
+    np.testing.assert_array_equal(got["plane"], surface[rows, cols].astype(np.float64))
+    np.testing.assert_array_equal(got["negative"], -surface[rows, cols].astype(np.float64))
+    with pytest.raises(InputError, match=r"two\.tif: band 3 asked for, but the raster has 2 band\(s\)"):
+        extract_values({"plane": path}, rows, cols, grid, bands={"plane": 3})

@@ -206,7 +206,7 @@ def test_csv_named_column_missing(grid, tmp_path):
 def test_csv_without_crs(grid, tmp_path):
     path = tmp_path / "s.csv"
     pd.DataFrame({"site_id": ["a"], "x": [X0 + 5], "y": [Y0 - 5]}).to_csv(path, index=False)
-    with pytest.raises(CRSError, match=r"s\.csv: a CSV carries no CRS; pass crs"):
+    with pytest.raises(CRSError, match=r"s\.csv: a CSV carries no CRS; set crs in \[sites\] \(or --crs\)"):
         read_sites(path, grid)
 
 
@@ -217,7 +217,7 @@ def test_vector_without_crs(grid, tmp_path):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", UserWarning)  # the writer warns about the missing CRS
         gdf.to_file(path)
-    with pytest.raises(CRSError, match=r"nocrs\.shp: the layer has no CRS; pass crs"):
+    with pytest.raises(CRSError, match=r"nocrs\.shp: the layer has no CRS; set crs in \[sites\] \(or --crs\)"):
         read_sites(path, grid)
     rec = read_sites(path, grid, crs="EPSG:3857")  # giving the CRS fixes it
     assert rec.n_kept == 2
@@ -228,7 +228,7 @@ def test_conflicting_crs(grid, tmp_path):
     gdf = gpd.GeoDataFrame({"site_id": ["a", "b"]}, geometry=shapely.points(x, y), crs=3857)
     path = tmp_path / "s.gpkg"
     gdf.to_file(path)
-    with pytest.raises(CRSError, match="declares CRS EPSG:3857 but crs='EPSG:4326'"):
+    with pytest.raises(CRSError, match="declares CRS EPSG:3857 but crs = 'EPSG:4326'"):
         read_sites(path, grid, crs="EPSG:4326")
 
 
@@ -238,7 +238,7 @@ def test_all_outside(grid, tmp_path):
         path, index=False)
     # Degrees declared as metres put every site near the origin, far from the grid.
     with pytest.raises(InsufficientDataError, match=r"far\.csv: all 2 site records lie outside "
-                                                    r"the study grid.*check that crs"):
+                                                    r"the study grid.*check that the CRS of the site coordinates is.*set crs in \[sites\]"):
         read_sites(path, grid, crs="EPSG:3857")
 
 
@@ -263,9 +263,9 @@ def test_more_folds_than_sites(grid):
     gdf = gpd.GeoDataFrame({"site_id": ["a", "b", "c"]}, geometry=shapely.points(x, y), crs=3857)
     rec = read_sites(gdf, grid)
     rec.check_n_splits(3)
-    with pytest.raises(InsufficientDataError, match=r"3 usable site\(s\) but 5 folds requested"):
+    with pytest.raises(InsufficientDataError, match=r"3 usable site\(s\) but 5 folds requested.*use at most 3 folds"):
         rec.check_n_splits(5)
-    with pytest.raises(InsufficientDataError, match="Use at most 1 folds"):
+    with pytest.raises(InsufficientDataError, match="cross-validation needs at least 2 sites"):
         check_n_splits(1, 2, source="s.gpkg")
 
 
@@ -311,3 +311,17 @@ def test_valid_mask_as_raster_path(grid, tmp_path):
     rec = _quiet_read(gdf, grid, valid_mask=path)
     assert list(rec.dropped["source_row"]) == [0, 1, 2, 3, 4]
     assert set(rec.dropped["reason"]) == {"on nodata cell"}
+
+
+def test_keep_fields_carry_columns_of_kept_records(grid):
+    x, y = _inside_points(4)
+    x[3] = X0 - 100  # outside: dropped, so its value must not appear
+    gdf = gpd.GeoDataFrame({"site_id": list("abcd"), "phase": ["early", None, "late", "early"]},
+                           geometry=gpd.points_from_xy(x, y), crs="EPSG:3857")
+    rec = _quiet_read(gdf, grid, keep_fields=["phase"])
+    assert rec.sites["site_id"].tolist() == ["a", "b", "c"]
+    assert rec.sites["phase"].iloc[[0, 2]].tolist() == ["early", "late"] and rec.sites["phase"].isna().iloc[1]
+    with pytest.raises(InputError, match="no column 'dating'"):
+        read_sites(gdf, grid, keep_fields=["dating"])
+    with pytest.raises(InputError, match="cannot be carried over"):
+        read_sites(gdf.assign(kind="x"), grid, keep_fields=["kind"])

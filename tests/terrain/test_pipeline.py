@@ -92,6 +92,8 @@ def test_outputs_are_tiled_compressed_with_metadata(tmp_path, dem_file):
         tags = ds.tags()
         assert ds.nodata == 0 and ds.dtypes[0] == "uint8"
         assert sorted(k for k in tags if k.startswith("class_")) == sorted(f"class_{i}" for i in range(1, 11))
+        # published class names (Jasiewicz & Stepinski 2013), lowest to highest position
+        assert (tags["class_1"], tags["class_5"], tags["class_10"]) == ("pit", "flat", "peak")
     summary = json.loads((tmp_path / "o" / "terrain.json").read_text())
     assert summary["layers"]["slope"]["file"] == "slope.tif"
     assert not [p for p in (tmp_path / "o").iterdir() if p.name.startswith(".")]
@@ -221,3 +223,40 @@ def test_geographic_dem(tmp_path):
     np.testing.assert_allclose(slope[1:-1, 1:-1], np.broadcast_to(expected[1:-1, None], (34, 38)), atol=1e-4)
     res = _run(["terrain", str(tmp_path / "geo.tif"), "--out", str(tmp_path / "g2"), "--layers", "tpi"])
     assert res.exit_code == 2 and "gdalwarp" in res.output
+
+
+def test_dem_read_once_per_pass(tmp_path, dem_file, monkeypatch):
+    # issue 7: the DEM was read five times; now once by the windowed pass and once
+    # whole for hydrology and distances together. Counted as grid cells read from the
+    # DEM (reads past the grid edge return NaN without reading and are not counted).
+    import geopandas as gpd
+    from shapely.geometry import LineString
+
+    from mlsites.grid import AlignedRaster, read_grid
+
+    grid = read_grid(dem_file)
+    left, bottom, right, top = grid.bounds
+    gpd.GeoDataFrame(geometry=[LineString([(left, bottom), (right, top)])], crs=grid.crs).to_file(
+        tmp_path / "road.gpkg")
+    cells = []
+    real_read = AlignedRaster.read
+
+    def counting_read(self, window=None, **kw):
+        out = real_read(self, window, **kw)
+        if self.path == dem_file:
+            cells.append(grid.n_cells if window is None else _cells_on_grid(window, grid))
+        return out
+
+    monkeypatch.setattr(AlignedRaster, "read", counting_read)
+    settings = TerrainSettings(layers=("slope", "tpi", "streams", "stream_distance"), tpi_radii_m=(30.0,),
+                               vectors={"road": str(tmp_path / "road.gpkg")}, stream_threshold_km2=0.01,
+                               block_rows=1000)
+    compute_terrain(dem_file, tmp_path / "o", settings, quiet=True)
+    assert sum(cells) == 2 * grid.n_cells  # one windowed pass + one whole read
+
+
+def _cells_on_grid(window, grid):
+    r0, c0 = max(int(window.row_off), 0), max(int(window.col_off), 0)
+    r1 = min(int(window.row_off + window.height), grid.height)
+    c1 = min(int(window.col_off + window.width), grid.width)
+    return max(r1 - r0, 0) * max(c1 - c0, 0)

@@ -1,0 +1,1 @@
+"""The run report: one self-contained HTML file a heritage officer can read."""
