@@ -41,6 +41,10 @@ __all__ = ["MapResult", "map_model", "ZONE_OUTSIDE", "zone_colours", "MAP_FILES"
 ZONE_OUTSIDE = 255
 #: Rasters a map folder may hold, besides ``map.json``.
 MAP_FILES = ("potential.tif", "zones.tif", "spread.tif", "dissimilarity.tif", "applicable.tif")
+#: Codec of the map rasters: deflate, which every TIFF reader opens, because maps go to
+#: people outside the project; writing them costs little next to predicting them (the
+#: working layers of the other stages use the writer's faster zstd).
+MAP_COMPRESSION = "deflate"
 #: Layers computed per window from the same feature matrix as the potential, other
 #: than the potential and spread: name -> (dtype, nodata, description). Written when
 #: the model card names its training table (see :func:`_fit_applicability`).
@@ -490,17 +494,18 @@ def _predict_pass(ctx, windows, staging, grid, n_jobs, scheduler, quiet, learner
     n_valid = 0
     with contextlib.ExitStack() as stack:
         writers = {"potential": stack.enter_context(RasterWriter(
-            staging / "potential.tif", grid, dtype=np.float32, description="potential",
+            staging / "potential.tif", grid, dtype=np.float32, description="potential", compress=MAP_COMPRESSION,
             tags={**tags, "layer": "potential", "units": "score 0-1 (site class probability of the model)"}))}
         if ctx.with_spread:
             writers["spread"] = stack.enter_context(RasterWriter(
-                staging / "spread.tif", grid, dtype=np.float32, description="spread",
+                staging / "spread.tif", grid, dtype=np.float32, description="spread", compress=MAP_COMPRESSION,
                 tags={**tags, "layer": "spread", "units": "standard deviation of the fold models' scores"}))
         for name in ctx.extras:
             dtype, nodata, about = EXTRA_LAYERS[name]
             writers[name] = stack.enter_context(RasterWriter(
                 staging / f"{name}.tif", grid, dtype=dtype, nodata=nodata, description=name,
-                tags={**tags, "layer": name, "description": about}, categorical=np.dtype(dtype).kind != "f"))
+                tags={**tags, "layer": name, "description": about}, categorical=np.dtype(dtype).kind != "f",
+                compress=MAP_COMPRESSION))
         bar = stack.enter_context(_progress(len(windows), f"map {learner}", quiet))
         for w, res in zip(windows, _results(ctx, windows, n_jobs, scheduler)):
             pot = res["potential"]
@@ -551,7 +556,7 @@ def _zone_pass(staging, grid, names, cuts, applicable):
     with AlignedRaster(staging / "potential.tif", grid) as src, \
             (AlignedRaster(applicable, grid, kind="categorical") if applicable else contextlib.nullcontext()) as app, \
             RasterWriter(staging / "zones.tif", grid, dtype=np.uint8, nodata=NODATA_ZONE, categorical=True,
-                         description="zones", tags=tags) as out:
+                         description="zones", tags=tags, compress=MAP_COMPRESSION) as out:
         for w in _strips(grid):
             codes = assign_zones(src.read(w.core), thresholds)
             # counts by score zone, whether or not inside the area of applicability

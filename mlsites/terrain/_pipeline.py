@@ -202,17 +202,25 @@ def _halo(names: list[str], settings: TerrainSettings, grid: GridSpec) -> int:
     return halo
 
 
-def _local_layer(name, block, cellsize, settings, memo):
+def _local_layer(name, block, cellsize, settings, memo, scratch=None):
     """Compute one local layer on a padded block (the caller trims the halo).
 
     ``memo`` is a dict shared by the layers of one block, so slope and aspect come
-    from a single Horn pass.
+    from a single Horn pass. ``scratch`` (a dict kept across blocks) lends the Horn
+    pass the output arrays of the previous block of the same shape: touching fresh
+    memory costs more than the kernel. The writer copies what it queues, so
+    reusing them is safe.
     """
     from mlsites import terrain as t
 
     if name in ("slope", "aspect"):
         if "horn" not in memo:
-            slope_deg, aspect_deg = t.slope_aspect(block, cellsize)
+            out = None
+            if scratch is not None:
+                out = scratch.get("horn")
+                if out is None or out[0].shape != block.shape:
+                    out = scratch["horn"] = (np.empty(block.shape), np.empty(block.shape))
+            slope_deg, aspect_deg = t.slope_aspect(block, cellsize, out=out)
             # Flat cells have no aspect; the file marks them FLAT_ASPECT so a GIS
             # user can tell them from nodata.
             aspect_deg[np.isnan(aspect_deg) & ~np.isnan(slope_deg)] = FLAT_ASPECT
@@ -240,7 +248,7 @@ def _local_layer(name, block, cellsize, settings, memo):
     raise AssertionError(name)
 
 
-def _writer_for(path, grid, name):
+def _writer_for(path, grid, name, *, max_pending=1):
     dtype, nodata = _INT_LAYERS.get(name, (np.float32, None))
     tags = {}
     if name == "landform":
@@ -256,7 +264,7 @@ def _writer_for(path, grid, name):
     about, units = {**LOCAL_LAYERS, **WHOLE_GRID_LAYERS}[key]
     tags.update(layer=name, description=about, units=units, software=f"mlsites {__version__}")
     return RasterWriter(path, grid, dtype=dtype, nodata=nodata, tags=tags, description=name,
-                        categorical=name in _INT_LAYERS)
+                        categorical=name in _INT_LAYERS, max_pending=max_pending)
 
 
 class _Stats:
@@ -267,17 +275,20 @@ class _Stats:
         self.min, self.max = math.inf, -math.inf
 
     def add(self, arr):
-        a = np.asarray(arr, dtype=np.float64)
-        valid = ~np.isnan(a)
-        n = int(valid.sum())
+        from mlsites.terrain._kernels import _row_moments_kernel
+
+        n_rows = arr.shape[0]
+        sums, squares, lows, highs = (np.empty(n_rows) for _ in range(4))
+        counts = np.empty(n_rows, dtype=np.int64)
+        _row_moments_kernel(arr, sums, squares, counts, lows, highs)
+        n = int(counts.sum())
         if n == 0:
             return
-        a0 = np.where(valid, a, 0.0)
-        self.sums.extend(a0.sum(axis=1).tolist())
-        self.squares.extend((a0 * a0).sum(axis=1).tolist())
+        self.sums.extend(sums.tolist())
+        self.squares.extend(squares.tolist())
         self.count += n
-        self.min = min(self.min, float(np.nanmin(a)))
-        self.max = max(self.max, float(np.nanmax(a)))
+        self.min = min(self.min, float(np.nanmin(lows)))
+        self.max = max(self.max, float(np.nanmax(highs)))
 
     def summary(self):
         if self.count == 0:
@@ -426,6 +437,7 @@ def _run_local(dem, grid, names, settings, staging, quiet, log):
     with contextlib.ExitStack() as stack:
         writers = {n: stack.enter_context(_writer_for(staging / f"{n}.tif", grid, n)) for n in raw}
         bar = stack.enter_context(_progress(len(windows), "local terrain layers", quiet))
+        scratch = {}
         for w in windows:
             block = dem.read(w.padded)
             n_valid += int(np.count_nonzero(~np.isnan(block[w.trim])))
@@ -434,7 +446,7 @@ def _run_local(dem, grid, names, settings, staging, quiet, log):
             memo = {}
             for n, writer in writers.items():
                 t0 = time.perf_counter()
-                out = _local_layer(n, block, cellsize, settings, memo)[w.trim]
+                out = _local_layer(n, block, cellsize, settings, memo, scratch)[w.trim]
                 seconds[n] += time.perf_counter() - t0
                 if n != "landform":
                     stats[n].add(out)
@@ -520,7 +532,9 @@ def _run_whole(dem, grid, names, settings, vectors, staging, quiet, log):
 
 
 def _write_whole(staging, grid, name, array):
-    with _writer_for(staging / f"{name}.tif", grid, name) as w:
+    # Written in this thread: a queued copy of a whole grid would raise the
+    # hydrology chain's bytes per cell.
+    with _writer_for(staging / f"{name}.tif", grid, name, max_pending=0) as w:
         w.write(array)
 
 

@@ -24,6 +24,7 @@ command and its worker processes (target < 2048 MB).
 import argparse
 import json
 import os
+import shutil
 import sys
 import tempfile
 import time
@@ -200,9 +201,14 @@ def main():
     # Figures the other parts of the mapping issue add, measured by their own scripts
     # and filled in here once they land (left as null until then):
     #   "tree_predictor": fast tree-ensemble predictor vs predict_proba (target >= 5x);
-    #   "writer": terrain slope + aspect file to file vs gdaldem (target >= 1.2x).
+    #   "writer": terrain slope + aspect file to file vs gdaldem on this run's DEM
+    #   (target >= 1.2x; null without gdal-bin), from terrain.py in this folder.
     result["tree_predictor"] = None
     result["writer"] = None
+    if shutil.which("gdaldem"):
+        from terrain import file_to_file_vs_gdaldem
+
+        result["writer"] = file_to_file_vs_gdaldem(work / f"dem_{args.size}.tif", work)
     if args.big:
         result["big"] = _big(work, args.big, args.jobs)
     print(json.dumps(result))

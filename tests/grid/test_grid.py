@@ -75,7 +75,7 @@ def test_write_read_roundtrip_and_profile(tmp_path, metric_grid):
     assert not list(tmp_path.glob(".*partial"))
     with rasterio.open(path) as ds:
         # What GIS users expect (brief): tiled, compressed, nodata set.
-        assert ds.profile["tiled"] and ds.profile["compress"] == "deflate"
+        assert ds.profile["tiled"] and ds.profile["compress"] == "zstd"
         assert np.isnan(ds.nodata)
         assert ds.tags()["units"] == "m"
         assert ds.descriptions == ("layer",)

@@ -86,7 +86,7 @@ def test_outputs_are_tiled_compressed_with_metadata(tmp_path, dem_file):
     compute_terrain(dem_file, tmp_path / "o", TerrainSettings(layers=("slope", "landform", "streams"),
                                                               landform_lookup_cells=5), quiet=True)
     with rasterio.open(tmp_path / "o" / "slope.tif") as ds:
-        assert ds.profile["tiled"] and ds.profile["compress"] == "deflate" and np.isnan(ds.nodata)
+        assert ds.profile["tiled"] and ds.profile["compress"] == "zstd" and np.isnan(ds.nodata)
         assert ds.tags()["units"] == "degrees"
     with rasterio.open(tmp_path / "o" / "landform.tif") as ds:
         tags = ds.tags()
@@ -97,6 +97,22 @@ def test_outputs_are_tiled_compressed_with_metadata(tmp_path, dem_file):
     summary = json.loads((tmp_path / "o" / "terrain.json").read_text())
     assert summary["layers"]["slope"]["file"] == "slope.tif"
     assert not [p for p in (tmp_path / "o").iterdir() if p.name.startswith(".")]
+
+
+def test_layer_statistics_match_numpy_over_any_windows(tmp_path, dem_file):
+    # terrain.json statistics of a layer equal NumPy's over the whole file (float64
+    # nanmean / nanstd with ddof 0 / nanmin / nanmax, the reference), for windows of
+    # 1, 13 and all rows.
+    for rows in (1, 13, 90):
+        summary = compute_terrain(dem_file, tmp_path / f"s{rows}", TerrainSettings(layers=("slope", "tpi"),
+                                  tpi_radii_m=(30.0,), block_rows=rows), quiet=True)
+        for name in ("slope", "tpi_30m"):
+            values = terrain.slope(read_array(dem_file, dtype=np.float64), 10.0) if name == "slope" else \
+                terrain.tpi(read_array(dem_file, dtype=np.float64), 10.0, radius=30.0)
+            got = summary["layers"][name]
+            assert got["valid_cells"] == int(np.count_nonzero(~np.isnan(values)))
+            for key, ref in (("mean", np.nanmean), ("std", np.nanstd), ("min", np.nanmin), ("max", np.nanmax)):
+                assert got[key] == pytest.approx(ref(values), rel=1e-12, abs=1e-12), (rows, name, key)
 
 
 def test_flat_cells_marked_in_aspect_file(tmp_path):
