@@ -45,7 +45,7 @@ def format_check_table(table) -> str:
               "lat, latitude.")
 @click.option("--crs", help="CRS of the coordinates, e.g. EPSG:4326. Required for a CSV; default: the file's own.")
 @click.option("--jobs", "n_jobs", type=click.IntRange(1), default=1, show_default=True,
-              help="Worker processes for a temporary map (number of processes).")
+              help="Worker processes for a temporary map.")
 @click.option("--with-coordinates", is_flag=True,
               help="Add the sites' x and y (map CRS) to check_sites.csv. Default: site ids only.")
 @click.option("--fresh", is_flag=True, help="Replace an existing output folder.")

@@ -461,3 +461,21 @@ def test_a_run_learner_without_a_map_is_mapped_for_its_check(study_run, study_da
     assert out["learners"]["fuzzy"]["training_sites"] == summary["counts"]["used"]  # its own training sites
     # nothing to do without [check] sites
     assert check_in_run(RunContext(**{**ctx.__dict__, "exp": {"check": {**spec, "sites": None}}})) is None
+
+
+def test_a_csv_of_sites_needs_its_crs_and_may_use_other_columns(toy, tmp_path):
+    cells = pick_cells(toy, 6, 4)
+    pts = gpd.GeoSeries(cell_points(toy["grid"], cells), crs=CRS).to_crs("EPSG:4326")
+    table = pd.DataFrame({"code": [f"C{i}" for i in range(len(cells))], "east_deg": pts.x, "north_deg": pts.y})
+    table.to_csv(tmp_path / "new.csv", index=False)
+    args = ["check", toy["card"], "--sites", tmp_path / "new.csv", "--map", toy["map"], "--id-field", "code",
+            "--x-field", "east_deg", "--y-field", "north_deg"]
+    assert_user_error(invoke(*args, "--out", tmp_path / "a", "--quiet"), "new.csv", "carries no CRS", "--crs")
+    assert not (tmp_path / "a").exists()
+    result = invoke(*args, "--crs", "EPSG:4326", "--out", tmp_path / "b")
+    assert result.exit_code == 0, result.output
+    assert "from EPSG:4326 to the map's CRS EPSG:32631" in result.stderr
+    assert "10 of 10 site records checked" in result.stdout
+    assert pd.read_csv(tmp_path / "b" / "check_sites.csv")["site_id"].tolist() == table["code"].tolist()
+    assert pd.read_csv(tmp_path / "b" / "check.csv")["sites_in_zone"].iloc[0] == 6
+
