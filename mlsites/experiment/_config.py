@@ -107,6 +107,16 @@ SCHEMA: dict[str, dict[str, tuple]] = {
     "maps": {
         "learners": ((str, list), "best_and_baseline", False),
     },
+    # Later-found sites the run checks its maps on (mlsites.mapping.check_in_run).
+    "check": {
+        "sites": (str, None, True),
+        "layer": (str, None, False),
+        "id_field": (str, "site_id", False),
+        "x_field": (str, None, False),
+        "y_field": (str, None, False),
+        "crs": (str, None, False),
+        "learners": (list, None, False),
+    },
 }
 #: Sections whose keys are names chosen by the user, each a table of settings.
 _NAMED_SECTIONS = {
@@ -475,12 +485,29 @@ def _check_values(s, bad):
         unused = [m for m in maps if m not in s["learners"]["use"]]
         if unused or not all(isinstance(m, str) for m in maps):
             bad("maps.learners", f"{unused or maps} not among the learners used ({', '.join(s['learners']['use'])})")
+    _check_check(s["check"], s["learners"]["use"], bad)
     for name in s["inputs"]:
         if name in s["distances"]:
             bad(f"inputs.{name}", "the same name is used in [distances]")
     from mlsites.periods._settings import check_periods
 
     check_periods(s["periods"], bad)
+
+
+def _check_check(c, used, bad):
+    if not c["sites"]:
+        given = [k for k in c if k != "sites" and c[k] != SCHEMA["check"][k][1]]
+        if given:
+            bad("check.sites", f"missing; [check] sets {', '.join(given)} but names no file of later-found sites")
+        return
+    if not Path(c["sites"]).exists():
+        bad("check.sites", f"file not found: {c['sites']}")
+    learners = c["learners"]
+    if learners is not None:
+        unused = [m for m in learners if m not in used]
+        if not learners or unused or not all(isinstance(m, str) for m in learners):
+            bad("check.learners", f"{unused or learners} not among the learners used ({', '.join(used)}); "
+                "leave it out to check the learners the run maps")
 
 
 def _check_terrain(t, distances, bad):

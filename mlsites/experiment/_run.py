@@ -634,8 +634,10 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
                                settings={"learner": lname, "seed": seed,
                                          "params": exp["learners"]["settings"].get(lname, {})},
                                metrics=rows.loc[lname].to_dict() if lname in rows.index else {},
-                               extra={"experiment": exp.name, "run": name,
+                               extra={"experiment": exp.name, "run": name, "run_dir": str(run_dir),
                                       "n_samples": int(len(table)), "n_sites": n_sites, **card_extras[lname],
+                                      # a check on later-found sites gives them the same footprint
+                                      "site_buffer_m": float(exp["sampling"]["site_buffer_m"]),
                                       # the table the area of applicability of a map is fitted on
                                       "training_table": {"path": str(run_dir / "samples" / "samples.parquet"),
                                                          "sha256": data_hash}},

@@ -62,12 +62,16 @@ class SiteRecords:
         Name of the file the records came from (for messages).
     n_read : int
         Number of records in the source.
+    source_crs : pyproj.CRS or None
+        CRS the coordinates were recorded in (the file's, or the one given); the
+        sites were reprojected from it when it differs from the grid's.
     """
 
     sites: gpd.GeoDataFrame
     dropped: pd.DataFrame
     source: str
     n_read: int
+    source_crs: object = None
 
     @property
     def n_kept(self) -> int:
@@ -306,7 +310,7 @@ def read_sites(path, grid: GridSpec, *, id_field: str = "site_id", x_field: str 
         },
         columns=DROPPED_COLUMNS,
     )
-    records = SiteRecords(sites, dropped, source, n_read)
+    records = SiteRecords(sites, dropped, source, n_read, source_crs=ProjCRS.from_user_input(src_crs))
     if records.n_kept == 0:
         hint = "see the reasons and fix the layer"
         if "could not be reprojected" in records.drop_counts():
