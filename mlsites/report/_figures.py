@@ -201,8 +201,7 @@ def _draw_panel(fig, ax, panel, shade, extent, unit_m, px_per_unit):
         index = np.full(panel.image.shape, np.nan)
         for c, i in lut.items():
             index[panel.image == c] = i
-        cmap = ListedColormap([rgba for _, _, rgba in panel.classes])
-        cmap.set_bad((0, 0, 0, 0))
+        cmap = ListedColormap([rgba for _, _, rgba in panel.classes]).with_extremes(bad=(0, 0, 0, 0))
         ax.imshow(np.ma.masked_invalid(index), cmap=cmap, vmin=-0.5, vmax=len(codes) - 0.5, extent=extent,
                   interpolation="nearest", alpha=0.85)
         handles += [Patch(facecolor=rgba, edgecolor="0.3", linewidth=0.4, label=label)

@@ -42,9 +42,7 @@ def ramp_colormap(colours, name="mlsites_ramp", *, bad_alpha=0.0):
     """A matplotlib colormap interpolating ``colours``; NaN transparent."""
     from matplotlib.colors import LinearSegmentedColormap
 
-    cmap = LinearSegmentedColormap.from_list(name, list(colours), N=256)
-    cmap.set_bad((0, 0, 0, bad_alpha))
-    return cmap
+    return LinearSegmentedColormap.from_list(name, list(colours), N=256).with_extremes(bad=(0, 0, 0, bad_alpha))
 
 
 def zone_palette(n_zones: int) -> dict:
