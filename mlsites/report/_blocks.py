@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import math
 
-__all__ = ["section", "absent", "para", "table", "figure", "figures", "items", "note", "pct", "num", "mean_sd",
+__all__ = ["section", "absent", "para", "table", "figure", "figures", "row", "items", "note", "pct", "num", "mean_sd",
            "share_ci", "share_sd"]
 
 
@@ -40,6 +40,12 @@ def figure(src, *, alt, caption="", wide=False):
 def figures(figs):
     figs = [f for f in figs if f]
     return {"kind": "figures", "items": figs} if figs else None
+
+
+def row(blocks):
+    """Blocks side by side (wrapping on narrow screens)."""
+    blocks = [b for b in blocks if b]
+    return {"kind": "row", "items": blocks} if blocks else None
 
 
 def items(lines):

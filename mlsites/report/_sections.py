@@ -23,6 +23,7 @@ from mlsites.report._blocks import (
     num,
     para,
     pct,
+    row,
     section,
     share_ci,
     share_sd,
@@ -169,16 +170,17 @@ def study(run):
         facts.append(("DEM", Path(s["study"]["dem"]).name))
     if s.get("sites", {}).get("path"):
         facts.append(("site records", Path(s["sites"]["path"]).name))
-    blocks.append(table(["", ""], facts, caption="The study", numeric=[False, False]))
+    facts_table = table(["", ""], facts, caption="The study", numeric=[False, False])
     if sampling is None:
-        blocks.append(note("sampling.json not found: counts of sites and background cells are not available."))
+        blocks += [facts_table, note("sampling.json not found: counts of sites and background cells are not "
+                                     "available.")]
         return section("study", "The study", blocks)
     features = sampling.get("features") or run.manifest.get("samples", {}).get("features", [])
     categorical = set(sampling.get("categorical") or [])
-    blocks.append(table(["layer", "kind", "source"],
-                        [(f, "categorical" if f in categorical else "continuous", _layer_source(f, s))
-                         for f in features], caption=f"The {len(features)} layers the learners used",
-                        numeric=[False, False, False]))
+    layers_table = table(["layer", "kind", "source"],
+                         [(f, "categorical" if f in categorical else "continuous", _layer_source(f, s))
+                          for f in features], caption=f"The {len(features)} layers the learners used",
+                         numeric=[False, False, False])
     sa = s.get("sampling", {})
     removed = sampling.get("removed", {})
     counts = [("site records read", sampling.get("n_sites_read")), ("sites used", sampling.get("n_sites_used")),
@@ -186,8 +188,9 @@ def study(run):
               ("background cells", sampling.get("n_background_cells")),
               ("site cells removed: a layer without value", removed.get("presence_cells_missing_values")),
               ("background cells removed: a layer without value", removed.get("background_cells_missing_values"))]
-    blocks.append(table(["", "count"], [(k, "" if v is None else v) for k, v in counts],
-                        caption="Sites and background cells"))
+    blocks.append(row([facts_table, layers_table,
+                       table(["", "count"], [(k, "" if v is None else v) for k, v in counts],
+                             caption="Sites and background cells")]))
     dropped = run.csv("dropped_records.csv")
     if dropped is not None and not dropped.empty and "reason" in dropped:
         rows = []

@@ -41,7 +41,8 @@ window.addEventListener('load', function () {
     images: Array.prototype.map.call(document.images, function (i) {
       return {alt: i.alt, width: i.naturalWidth, height: i.naturalHeight, complete: i.complete}; }),
     sections: Array.prototype.map.call(document.querySelectorAll('section'), function (s) {
-      return {id: s.id, height: s.getBoundingClientRect().height, absent: s.classList.contains('absent')}; }),
+      var r = s.getBoundingClientRect();
+      return {id: s.id, top: r.top + window.scrollY, height: r.height, absent: s.classList.contains('absent')}; }),
     caution: (document.getElementById('caution') || {}).offsetTop,
     errors: window.__probe});
   document.body.appendChild(out);
@@ -53,12 +54,13 @@ def _run(args, timeout=120):
     return subprocess.run([CHROMIUM, *FLAGS, *args], capture_output=True, text=True, timeout=timeout)
 
 
-def probe(page, workdir):
+def probe(page, workdir, *, width=1280):
     """Load ``page`` (an HTML file) with the probe script; return (result dict, chromium stderr)."""
     text = page.read_text(encoding="utf-8")
     probed = workdir / "probed.html"
     probed.write_text(text.replace("<head>", "<head>" + PROBE, 1), encoding="utf-8")
     done = _run([f"--user-data-dir={workdir / 'profile-dump'}", "--virtual-time-budget=20000",
+                 f"--window-size={width},1000",
                  "--enable-logging=stderr", "--v=0", "--dump-dom", probed.as_uri()])
     m = re.search(r'<pre id="probe-result">(.*?)</pre>', done.stdout, flags=re.S)
     if m is None:
