@@ -268,9 +268,10 @@ def _sampling_paragraph(run):
     if sa.get("one_cell_per_site"):
         text += " Each site was represented by one of its cells, drawn with the seed."
     else:
-        text += (f" Each site covered the cells within {_g(sa.get('site_buffer_m', 0.0))} m of it (polygons: "
-                 "the cells whose centre they contain), which shared one unit of weight, so every site counts "
-                 "once whatever its size.")
+        buffer = float(sa.get("site_buffer_m", 0.0) or 0.0)
+        cover = (f"the cells within {_g(buffer)} m of it" if buffer > 0 else "the cell that holds it")
+        text += (f" Each point site covered {cover} (polygons: the cells whose centre they contain), which "
+                 "shared one unit of weight, so every site counts once whatever its size.")
     n_bg = sampling.get("n_background_cells")
     asked = (f"{sa['background_count']}" if sa.get("background_count") and not sa.get("background_fraction")
              else f"a share {_g(sa.get('background_fraction'))} of the area")
