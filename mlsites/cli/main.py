@@ -18,6 +18,7 @@ _COMMANDS = {
     "periods": ("mlsites.cli.periods", "periods", "Sites through time: blocks, envelopes, density maps."),
     "map": ("mlsites.cli.map", "map_command", "Map a saved model: potential, zones and spread rasters."),
     "check": ("mlsites.cli.check", "check", "Check a saved model on sites found after it was made."),
+    "report": ("mlsites.cli.report", "report", "Rebuild the HTML report of a finished run."),
 }
 
 

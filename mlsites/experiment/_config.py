@@ -2,7 +2,7 @@
 
 An experiment file has sections of our own naming (``[study]``, ``[inputs]``,
 ``[distances]``, ``[terrain]``, ``[sites]``, ``[sampling]``, ``[folds]``,
-``[learners]``, ``[evaluation]``, ``[explain]``, ``[outputs]``, ``[periods]``). Paths are relative to the file
+``[learners]``, ``[evaluation]``, ``[explain]``, ``[outputs]``, ``[periods]``, ``[maps]``, ``[report]``). Paths are relative to the file
 that names them. ``extends = "base.toml"`` at the top merges the file over a base
 file, so a study keeps one base and many variants. All problems are collected and
 reported together, each with the file, the key (and line where known) and a hint.
@@ -116,6 +116,13 @@ SCHEMA: dict[str, dict[str, tuple]] = {
         "y_field": (str, None, False),
         "crs": (str, None, False),
         "learners": (list, None, False),
+    },
+    # The run report (mlsites.report): a surface to compare the best map with, and how sites are shown.
+    "report": {
+        "reference_surface": (str, None, True),
+        "reference_label": (str, "reference surface", False),
+        "site_cell_m": (_NUM, 1000.0, False),
+        "title": (str, None, False),
     },
 }
 #: Sections whose keys are names chosen by the user, each a table of settings.
@@ -486,6 +493,12 @@ def _check_values(s, bad):
         if unused or not all(isinstance(m, str) for m in maps):
             bad("maps.learners", f"{unused or maps} not among the learners used ({', '.join(s['learners']['use'])})")
     _check_check(s["check"], s["learners"]["use"], bad)
+    rep = s["report"]
+    if rep["reference_surface"] and not Path(rep["reference_surface"]).is_file():
+        bad("report.reference_surface", f"file not found: {rep['reference_surface']}")
+    if not rep["site_cell_m"] > 0:
+        bad("report.site_cell_m", f"{rep['site_cell_m']:g} m; the squares sites are shown in need a positive side "
+            "in metres, e.g. 1000")
     for name in s["inputs"]:
         if name in s["distances"]:
             bad(f"inputs.{name}", "the same name is used in [distances]")

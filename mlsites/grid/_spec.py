@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -143,6 +144,21 @@ class GridSpec:
         unit = self._linear_unit_m()
         dx, dy = self.res[0] * unit, self.res[1] * unit
         return float(dx) if dx == dy else (float(dx), float(dy))
+
+    def coarsened(self, max_side: int) -> "GridSpec":
+        """The same extent in cells ``f`` times larger, at most ``max_side`` per side (for figures).
+
+        ``f = ceil(max(rows, cols) / max_side)``; each side gets ``round(n / f)``
+        cells (at least 1), stretched to keep the bounds exactly, so cells may be
+        slightly rectangular. A grid already small enough is returned as it is.
+        """
+        if isinstance(max_side, bool) or not isinstance(max_side, (int, np.integer)) or max_side < 1:
+            raise InputError(f"max_side={max_side!r}; expected a whole number of cells >= 1")
+        f = max(1, math.ceil(max(self.shape) / max_side))
+        if f == 1:
+            return self
+        h, w = max(1, round(self.height / f)), max(1, round(self.width / f))
+        return GridSpec(self.crs, self.transform * Affine.scale(self.width / w, self.height / h), w, h)
 
     # -- serialisation --------------------------------------------------------
     def to_dict(self) -> dict:

@@ -22,7 +22,7 @@ from mlsites.periods._aoristic import (
     time_blocks,
 )
 from mlsites.periods._dates import DateRanges, date_ranges
-from mlsites.periods._density import hillshade, kernel_density, scott_bandwidth, write_densities
+from mlsites.periods._density import kernel_density, scott_bandwidth, write_densities
 from mlsites.periods._montecarlo import (
     NULL_MODEL,
     MonteCarloCounts,
@@ -61,7 +61,6 @@ __all__ = [
     "kernel_density",
     "write_densities",
     "scott_bandwidth",
-    "hillshade",
     "WindowWeights",
     "window_probabilities",
     "PeriodsResult",

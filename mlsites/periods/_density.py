@@ -1,4 +1,4 @@
-"""Kernel density of sites per time block, and the hillshade the maps are drawn on.
+"""Kernel density of sites per time block.
 
 The density of block j at a cell centre is ``sum_i w_ij K(|c - x_i|)`` with the
 Gaussian kernel ``K(r) = exp(-r^2 / (2 h^2)) / (2 pi h^2)`` (bandwidth ``h`` in
@@ -20,7 +20,7 @@ from rasterio.windows import Window
 from mlsites.errors import InputError, InsufficientDataError
 from mlsites.grid import GridSpec, iter_windows
 
-__all__ = ["scott_bandwidth", "kernel_density", "write_densities", "hillshade", "CUTOFF_BANDWIDTHS"]
+__all__ = ["scott_bandwidth", "kernel_density", "write_densities", "CUTOFF_BANDWIDTHS"]
 
 #: A site adds nothing to cells farther than this many bandwidths from it along x or y:
 #: it would add less than exp(-18) ~ 1.5e-8 of its kernel's peak there.
@@ -197,43 +197,3 @@ def write_densities(paths, x, y, weights, grid: GridSpec, *, bandwidth_m, valid_
             if progress is not None:
                 progress(int(win.core.height * win.core.width))
     return [writer.path for writer in writers]
-
-
-def hillshade(dem, cellsize, *, azimuth=315.0, altitude=45.0) -> np.ndarray:
-    """Shaded relief: the cosine of the angle between the sun and the surface normal.
-
-    Parameters
-    ----------
-    dem : array_like of shape (rows, cols)
-        Elevation in metres; NaN = nodata; row 0 north.
-    cellsize : float or (float, float)
-        Cell size in metres, as for :func:`mlsites.terrain.slope`.
-    azimuth : float, default 315
-        Sun direction, degrees clockwise from north (315 = north-west).
-    altitude : float, default 45
-        Sun height above the horizon, degrees.
-
-    Returns
-    -------
-    ndarray of float64
-        Illumination in [0, 1] (0 = in shade); NaN where Horn slope is NaN (a
-        one-cell border and cells next to nodata).
-
-    Notes
-    -----
-    ``cos(Z) cos(S) + sin(Z) sin(S) cos(A_sun - A)`` with zenith ``Z = 90 -
-    altitude``, Horn slope ``S`` and aspect ``A`` (downslope azimuth) from
-    :func:`mlsites.terrain.slope_aspect`, clipped below at 0 (the standard
-    hill-shading formula, Burrough & McDonnell 1998 [memory]; gdaldem's default
-    hillshade writes ``1 + 254`` times the same value).
-    """
-    from mlsites.terrain import slope_aspect
-
-    if not (0 < altitude <= 90) or not math.isfinite(azimuth):
-        raise InputError(f"sun azimuth {azimuth!r} / altitude {altitude!r}; expected altitude in (0, 90] degrees")
-    sl, asp = slope_aspect(np.asarray(dem, dtype=np.float64), cellsize)
-    zen, az = math.radians(90.0 - altitude), math.radians(azimuth)
-    s = np.radians(sl)
-    a = np.radians(np.where(np.isnan(asp), 0.0, asp))  # flat cells: sin(S) = 0, any aspect will do
-    shade = math.cos(zen) * np.cos(s) + math.sin(zen) * np.sin(s) * np.cos(az - a)
-    return np.clip(shade, 0.0, 1.0)

@@ -9,7 +9,6 @@ any other stage (period-specific models weigh sites by them).
 from __future__ import annotations
 
 import json
-import math
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -134,17 +133,6 @@ def _site_points(records, ranges):
     return pts.x.to_numpy(), pts.y.to_numpy()
 
 
-def _display_grid(grid):
-    from affine import Affine
-
-    from mlsites.grid import GridSpec
-
-    f = max(1, math.ceil(max(grid.shape) / _DISPLAY_CELLS))
-    h, w = max(1, round(grid.height / f)), max(1, round(grid.width / f))
-    transform = grid.transform * Affine.scale(grid.width / w, grid.height / h)
-    return GridSpec(grid.crs, transform, w, h)
-
-
 def _display_dem(dem_path, display):
     from rasterio.enums import Resampling
 
@@ -157,22 +145,18 @@ def _display_dem(dem_path, display):
 
 def _squares(x, y, w, grid, side):
     """Generalised sites: centres of squares of ``side`` CRS units and the weight in each."""
-    left, bottom = grid.bounds[0], grid.bounds[1]
+    from mlsites.sampling import site_squares
+
     keep = w > _EMPTY
-    i = np.floor((x[keep] - left) / side).astype(np.int64)
-    j = np.floor((y[keep] - bottom) / side).astype(np.int64)
-    if not keep.any():
-        return np.empty(0), np.empty(0), np.empty(0)
-    frame = pd.DataFrame({"i": i, "j": j, "w": w[keep]}).groupby(["i", "j"], as_index=False)["w"].sum()
-    return (left + (frame["i"].to_numpy() + 0.5) * side, bottom + (frame["j"].to_numpy() + 0.5) * side,
-            frame["w"].to_numpy())
+    return site_squares(x[keep], y[keep], grid, side, weight=w[keep])
 
 
 def _maps(staging, exp, grid, x, y, weights, blocks, table, *, show_sites, quiet, log):
     """Density GeoTIFFs and the small multiples; returns the maps' part of the summary."""
     from tqdm.auto import tqdm
 
-    from mlsites.periods._density import hillshade, kernel_density, scott_bandwidth, write_densities
+    from mlsites.periods._density import kernel_density, scott_bandwidth, write_densities
+    from mlsites.terrain import hillshade
     from mlsites.periods._plots import plot_density_maps
 
     p = exp["periods"]
@@ -205,7 +189,7 @@ def _maps(staging, exp, grid, x, y, weights, blocks, table, *, show_sites, quiet
         write_densities([folder / n for n in names], x, y, dense, grid, bandwidth_m=bandwidth,
                         valid_raster=exp["study"]["dem"], tags=tags, progress=bar.update)
     info["blocks_mapped"] = [f"density/{n}" for n in names]
-    display = _display_grid(grid)
+    display = grid.coarsened(_DISPLAY_CELLS)
     dem = _display_dem(exp["study"]["dem"], display)
     shade = hillshade(dem, display.cellsize())
     maps = kernel_density(x, y, dense, display, bandwidth_m=bandwidth)

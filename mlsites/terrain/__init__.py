@@ -3,6 +3,7 @@
 from ._derivatives import (
     aspect,
     eastness,
+    hillshade,
     northness,
     plan_curvature,
     profile_curvature,
@@ -40,6 +41,7 @@ from ._pipeline import (
 __all__ = [
     "aspect",
     "eastness",
+    "hillshade",
     "northness",
     "plan_curvature",
     "profile_curvature",

@@ -1,4 +1,4 @@
-"""Local terrain derivatives of a DEM array: slope, aspect, curvature, TPI, TRI.
+"""Local terrain derivatives of a DEM array: slope, aspect, curvature, TPI, TRI, hillshade.
 
 Every function takes a 2-D elevation array (NaN = nodata; row 0 is the north edge,
 columns increase east) and returns float64 arrays of the same shape. The
@@ -37,6 +37,7 @@ from mlsites.terrain import _kernels
 __all__ = [
     "aspect",
     "eastness",
+    "hillshade",
     "northness",
     "plan_curvature",
     "profile_curvature",
@@ -783,3 +784,41 @@ def standardize_with(layer, mean, sd):
             f"cannot be standardised)."
         )
     return (np.asarray(layer, dtype=np.float64) - mean) / sd
+
+
+def hillshade(dem, cellsize, *, azimuth=315.0, altitude=45.0) -> np.ndarray:
+    """Shaded relief: the cosine of the angle between the sun and the surface normal.
+
+    Parameters
+    ----------
+    dem : array_like of shape (rows, cols)
+        Elevation in metres; NaN = nodata; row 0 north.
+    cellsize : float or (float, float)
+        Cell size in metres, as for :func:`mlsites.terrain.slope`.
+    azimuth : float, default 315
+        Sun direction, degrees clockwise from north (315 = north-west).
+    altitude : float, default 45
+        Sun height above the horizon, degrees.
+
+    Returns
+    -------
+    ndarray of float64
+        Illumination in [0, 1] (0 = in shade); NaN where Horn slope is NaN (a
+        one-cell border and cells next to nodata).
+
+    Notes
+    -----
+    ``cos(Z) cos(S) + sin(Z) sin(S) cos(A_sun - A)`` with zenith ``Z = 90 -
+    altitude``, Horn slope ``S`` and aspect ``A`` (downslope azimuth) from
+    :func:`mlsites.terrain.slope_aspect`, clipped below at 0 (the standard
+    hill-shading formula, Burrough & McDonnell 1998 [memory]; gdaldem's default
+    hillshade writes ``1 + 254`` times the same value).
+    """
+    if not (0 < altitude <= 90) or not math.isfinite(azimuth):
+        raise InputError(f"sun azimuth {azimuth!r} / altitude {altitude!r}; expected altitude in (0, 90] degrees")
+    sl, asp = slope_aspect(np.asarray(dem, dtype=np.float64), cellsize)
+    zen, az = math.radians(90.0 - altitude), math.radians(azimuth)
+    s = np.radians(sl)
+    a = np.radians(np.where(np.isnan(asp), 0.0, asp))  # flat cells: sin(S) = 0, any aspect will do
+    shade = math.cos(zen) * np.cos(s) + math.sin(zen) * np.sin(s) * np.cos(az - a)
+    return np.clip(shade, 0.0, 1.0)
