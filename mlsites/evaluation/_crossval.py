@@ -670,12 +670,16 @@ def _plot(curves, kind, path, xlabel, ylabel, title):
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
+    from mlsites._style import LEARNER_DASHES, learner_style
+
     fig, ax = plt.subplots(figsize=(5.0, 5.0), dpi=100)
     try:
         ax.plot([0, 1], [0, 1], color="0.6", linestyle="--", linewidth=1, label="chance")
         part = curves[curves["curve"] == kind]
-        for name, group in part.groupby("learner", sort=False):
-            ax.plot(group["x"].to_numpy(), group["y"].to_numpy(), linewidth=1.5, label=name)
+        for i, (name, group) in enumerate(part.groupby("learner", sort=False)):
+            colour, _ = learner_style(i)
+            ax.plot(group["x"].to_numpy(), group["y"].to_numpy(), color=colour,
+                    linestyle=LEARNER_DASHES[i % len(LEARNER_DASHES)], linewidth=1.5, label=name)
         ax.set_xlim(0, 1)
         ax.set_ylim(0, 1)
         ax.set_xlabel(xlabel)

@@ -10,19 +10,13 @@ from __future__ import annotations
 
 import numpy as np
 
+from mlsites._style import LEARNER_COLOURS, LEARNER_MARKERS, learner_style
+
 __all__ = ["LEARNER_COLOURS", "LEARNER_MARKERS", "learner_style", "plot_importance", "plot_response"]
 
-#: Learner colours, in the order learners are listed (navy, orange, sky, umber, grey).
-LEARNER_COLOURS = ("#17336b", "#d9822b", "#6cb0e0", "#7a4a00", "#9b9b9b")
-LEARNER_MARKERS = ("o", "s", "D", "^", "v")
 # data panels in greys, so they are never mistaken for a learner
 _SITE_COLOUR = "#303030"
 _LANDSCAPE_COLOUR = "#c4c4c4"
-
-
-def learner_style(i):
-    """(colour, marker) of the i-th learner; cycles after five."""
-    return LEARNER_COLOURS[i % len(LEARNER_COLOURS)], LEARNER_MARKERS[i % len(LEARNER_MARKERS)]
 
 
 def _pyplot():
