@@ -34,7 +34,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 from mlsites.evaluation import cross_validate  # noqa: E402
 from mlsites.learners import fast_predictor, fit_learner, make_learner  # noqa: E402
-from virtual_study import virtual_study  # noqa: E402
+from _virtual_study import virtual_study  # noqa: E402
 
 #: Settings compared (parameters of RandomForestClassifier over the preset's own).
 #: With scikit-learn >= 1.9 each tree draws its bootstrap sample with probability
