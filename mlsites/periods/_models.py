@@ -185,7 +185,7 @@ def _high_share(zones, learner) -> float:
 
 def fit_window_models(table, windows, *, features, categorical=(), learners, fold_column="fold", splitter=None,
                       random_state=0, zone_targets=None, top_area_shares=None, n_repeats=3, n_jobs=1,
-                      log=None) -> WindowModels:
+                      progress=None, log=None) -> WindowModels:
     """Cross-validate every learner per time window on the same folds; compare consecutive windows.
 
     Parameters
@@ -194,8 +194,8 @@ def fit_window_models(table, windows, *, features, categorical=(), learners, fol
         The sample table every learner of the run used (``sample_id``,
         ``label``, ``weight``, ``site_id``, ``fold_column``, features).
     windows : WindowWeights
-        From :func:`mlsites.periods.window_probabilities`, in time order of
-        ``windows.windows`` (continuity compares rows i and i + 1).
+        From :func:`mlsites.periods.window_probabilities`. Windows are taken in
+        time order (by start, then end); continuity compares each with the next.
     features, categorical : sequence of str
     learners : dict of str to callable
         Learner name -> zero-argument factory of a fresh estimator.
@@ -212,6 +212,8 @@ def fit_window_models(table, windows, *, features, categorical=(), learners, fol
     n_repeats : int, default 3
         Permutations per fold and layer.
     n_jobs : int, default 1
+    progress : tqdm-like or callable, optional
+        Passed to :func:`~mlsites.evaluation.cross_validate` (one step per fit).
     log : callable, optional
 
     Returns
@@ -255,7 +257,7 @@ def fit_window_models(table, windows, *, features, categorical=(), learners, fol
     X_bg = table[feats].iloc[background]
     table_sites = set(table.loc[label_all == 1, "site_id"].astype(str))
     rows, imp_rows, dropped_parts, results, per_window = [], [], [], {}, {}
-    for w in windows.windows.itertuples():
+    for w in windows.windows.sort_values(["start", "end"], kind="stable").itertuples():
         name = str(w.window)
         wt, undated = window_table(table, windows.for_window(name), window=name)
         left = windows.left_out[windows.left_out["window"] == name]
@@ -274,7 +276,7 @@ def fit_window_models(table, windows, *, features, categorical=(), learners, fol
         try:
             cv = cross_validate(wt, features=feats, categorical=categorical, learners=learners,
                                 fold_column=fold_column, splitter=split_obj, random_state=random_state,
-                                n_jobs=n_jobs, **kwargs)
+                                n_jobs=n_jobs, progress=progress, **kwargs)
         except InsufficientDataError as exc:
             raise InsufficientDataError(f"time window {name!r}: {exc}") from exc
         results[name] = cv
