@@ -43,6 +43,7 @@ from mlsites.periods._models import (
 from mlsites.periods._run import (
     DatedSites,
     PeriodsResult,
+    check_dated_sites,
     has_dates,
     read_dated_sites,
     write_periods,
@@ -83,6 +84,7 @@ __all__ = [
     "write_window_models",
     "DatedSites",
     "read_dated_sites",
+    "check_dated_sites",
     "write_periods",
     "has_dates",
     "PeriodsResult",

@@ -5,6 +5,20 @@ from __future__ import annotations
 import time
 
 
+def check_periods_in_run(exp) -> None:
+    """The run's early check of dates, blocks and windows (with its other checks, before sampling).
+
+    Without dates there is nothing to check. Raises the errors of
+    :func:`mlsites.periods.check_dated_sites` (an end year before its start, an
+    unmapped category, a window outside every range, too narrow or too many
+    blocks), so a run with bad dates stops before any work.
+    """
+    from mlsites.periods._run import check_dated_sites, has_dates
+
+    if has_dates(exp):
+        check_dated_sites(exp)
+
+
 def periods_in_run(ctx):
     """Time blocks, Monte Carlo envelopes, density maps and period-specific models of a run.
 

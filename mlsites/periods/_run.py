@@ -23,7 +23,7 @@ from mlsites.periods._dates import DateRanges, date_ranges
 from mlsites.periods._montecarlo import ENVELOPE, NULL_MODEL, block_table, monte_carlo
 from mlsites.periods._windows import WindowWeights, window_probabilities
 
-__all__ = ["PeriodsResult", "DatedSites", "run_periods", "read_dated_sites", "write_periods", "has_dates",
+__all__ = ["PeriodsResult", "DatedSites", "run_periods", "read_dated_sites", "check_dated_sites", "write_periods", "has_dates",
            "density_from_settings", "dates_for_experiment", "blocks_for_experiment", "windows_for_experiment",
            "MAX_MAP_BLOCKS"]
 
@@ -329,6 +329,47 @@ def read_dated_sites(exp, *, log=None) -> DatedSites:
     ------
     ConfigError, InputError, InsufficientDataError, CRSError
     """
+    log = log or (lambda m: None)
+    grid, records, ranges, blocks, windows = check_dated_sites(exp, log=log)
+    p = exp["periods"]
+    density = density_from_settings(p)
+    seed = exp["study"]["seed"]
+    log(f"{blocks.n_blocks} blocks of {blocks.width:g} years over [{blocks.edges[0]:g}, {blocks.edges[-1]:g}), "
+        f"{density.kind} dates within ranges; {p['n_simulations']} simulations (seed {seed})")
+    mc = monte_carlo(ranges.start, ranges.end, blocks, n_simulations=p["n_simulations"], density=density,
+                     random_state=np.random.default_rng(seed))
+    table = block_table(blocks, mc)
+    weights = sparse_weights(ranges.start, ranges.end, blocks, density=density)
+    inside = np.asarray(weights.sum(axis=1)).ravel()
+    n_partial = int((inside < 1 - 1e-9).sum())
+    if n_partial:
+        log(f"{n_partial} site(s) have part of their range outside the span; only the part inside counts "
+            f"({float((1 - inside).sum()):.2f} site(s) of weight outside)")
+    if windows is not None:
+        for r in windows.windows.itertuples():
+            log(f"window {r.window} [{r.start:g}, {r.end:g}): {r.n_sites} sites kept (weight {r.weight_sum:.2f}), "
+                f"{r.n_left_out} left out (probability below {windows.min_probability:g} or no overlap)")
+    return DatedSites(grid=grid, records=records, ranges=ranges, blocks=blocks, density=density, mc=mc,
+                      table=table, weights=weights, n_partial=n_partial, windows=windows)
+
+
+def check_dated_sites(exp, *, log=None):
+    """Read the sites and check their dates, blocks and windows (no simulation); fast.
+
+    A run calls it with its other checks, before any sampling, so bad dates stop
+    the run at once rather than at its periods stage.
+
+    Returns
+    -------
+    (GridSpec, SiteRecords, DateRanges, TimeBlocks, WindowWeights or None)
+
+    Raises
+    ------
+    ConfigError, InputError, InsufficientDataError, CRSError
+        An end year before its start, a category missing from the table, a
+        window outside every site's range, blocks narrower than a year or more
+        than :data:`MAX_BLOCKS` of them, a geographic grid.
+    """
     from mlsites.grid import read_grid
     from mlsites.sampling import read_sites, read_valid_mask
 
@@ -358,27 +399,7 @@ def read_dated_sites(exp, *, log=None) -> DatedSites:
         log("dating categories: " + "; ".join(f"{r.category} = [{r.start:g}, {r.end:g}): {r.n_sites} sites"
                                               for r in ranges.mapping.itertuples()))
     blocks = blocks_for_experiment(exp, ranges)
-    density = density_from_settings(p)
-    seed = exp["study"]["seed"]
-    log(f"{blocks.n_blocks} blocks of {blocks.width:g} years over [{blocks.edges[0]:g}, {blocks.edges[-1]:g}), "
-        f"{density.kind} dates within ranges; {p['n_simulations']} simulations (seed {seed})")
-    mc = monte_carlo(ranges.start, ranges.end, blocks, n_simulations=p["n_simulations"], density=density,
-                     random_state=np.random.default_rng(seed))
-    table = block_table(blocks, mc)
-    weights = sparse_weights(ranges.start, ranges.end, blocks, density=density)
-    inside = np.asarray(weights.sum(axis=1)).ravel()
-    n_partial = int((inside < 1 - 1e-9).sum())
-    if n_partial:
-        log(f"{n_partial} site(s) have part of their range outside the span; only the part inside counts "
-            f"({float((1 - inside).sum()):.2f} site(s) of weight outside)")
-    windows = windows_for_experiment(exp, ranges)
-    if windows is not None:
-        for r in windows.windows.itertuples():
-            log(f"window {r.window} [{r.start:g}, {r.end:g}): {r.n_sites} sites kept (weight {r.weight_sum:.2f}), "
-                f"{r.n_left_out} left out (probability below {windows.min_probability:g} or no overlap)")
-
-    return DatedSites(grid=grid, records=records, ranges=ranges, blocks=blocks, density=density, mc=mc,
-                      table=table, weights=weights, n_partial=n_partial, windows=windows)
+    return grid, records, ranges, blocks, windows_for_experiment(exp, ranges)
 
 
 def write_periods(staging, exp, dated: DatedSites, *, show_sites=False, quiet=False, log=None, t0=None) -> dict:
