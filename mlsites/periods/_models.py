@@ -222,8 +222,11 @@ def fit_window_models(table, windows, *, features, categorical=(), learners, fol
 
     Raises
     ------
-    InputError
-        A window without a site in the sample table.
+    InsufficientDataError
+        No window could be cross-validated. A window that keeps no site of the
+        table, or has a fold without sites, is skipped, logged and named with
+        the reason in ``summary["skipped"]``; the others go on (continuity then
+        compares the windows that have models).
 
     Notes
     -----
@@ -256,7 +259,7 @@ def fit_window_models(table, windows, *, features, categorical=(), learners, fol
     background = np.flatnonzero(label_all == 0)
     X_bg = table[feats].iloc[background]
     table_sites = set(table.loc[label_all == 1, "site_id"].astype(str))
-    rows, imp_rows, dropped_parts, results, per_window = [], [], [], {}, {}
+    rows, imp_rows, dropped_parts, results, per_window, skipped, counts = [], [], [], {}, {}, {}, {}
     for w in windows.windows.sort_values(["start", "end"], kind="stable").itertuples():
         name = str(w.window)
         wt, undated = window_table(table, windows.for_window(name), window=name)
@@ -268,17 +271,23 @@ def fit_window_models(table, windows, *, features, categorical=(), learners, fol
         dropped_parts.append(dropped)
         site_p = wt.loc[wt["label"] == 1].drop_duplicates("site_id")["window_probability"].to_numpy()
         if site_p.size == 0:
-            raise InputError(f"time window {name!r} [{w.start:g}, {w.end:g}) keeps no site of the sample table "
-                             f"({len(dropped)} left out); widen the window or lower min_probability")
-        log(f"window {name}: {site_p.size} sites (effective {_effective(site_p):.1f}), {len(dropped)} site(s) left "
-            f"out (listed in windows/dropped_sites.csv), {int((wt['label'] == 0).sum())} background cells")
+            skipped[name] = (f"keeps no site of the sample table ({len(dropped)} left out); widen the window or "
+                             "lower min_probability")
+            log(f"window {name}: no models; {skipped[name]}")
+            continue
+        counts[name] = {"n_sites": int(site_p.size), "effective_sites": _effective(site_p),
+                        "n_site_cells": int((wt["label"] == 1).sum()), "n_left_out": int(len(dropped))}
+        log(f"window {name}: {site_p.size} sites (effective {_effective(site_p):.1f}), {len(dropped)} site(s) of the "
+            f"sample table left out (listed with the reason), {int((wt['label'] == 0).sum())} background cells")
         split_obj = splitter(wt) if splitter is not None else None
         try:
             cv = cross_validate(wt, features=feats, categorical=categorical, learners=learners,
                                 fold_column=fold_column, splitter=split_obj, random_state=random_state,
                                 n_jobs=n_jobs, progress=progress, **kwargs)
-        except InsufficientDataError as exc:
-            raise InsufficientDataError(f"time window {name!r}: {exc}") from exc
+        except InsufficientDataError as exc:  # too few sites in some fold: say so, go on with the others
+            skipped[name] = str(exc)
+            log(f"window {name}: no models; {exc}")
+            continue
         results[name] = cv
         splits = _splits(wt, fold_column, split_obj)
         top = {}
@@ -308,6 +317,9 @@ def fit_window_models(table, windows, *, features, categorical=(), learners, fol
         log(f"window {name}: best {best} (AUC {cv.summary['auc_mean'].iloc[0]:.3f}), top layer "
             f"{top[best]['layer']}")
 
+    if not per_window:
+        raise InsufficientDataError("no time window could be cross-validated: " + "; ".join(
+            f"{k}: {v}" for k, v in skipped.items()))
     names = list(per_window)
     cont = []
     for a, b in zip(names[:-1], names[1:]):
@@ -333,7 +345,7 @@ def fit_window_models(table, windows, *, features, categorical=(), learners, fol
                "learners": list(learners), "fold_column": fold_column if splitter is None else None,
                "splitter": None if splitter is None else "rebuilt per window",
                "n_repeats": int(n_repeats), "seed": random_state, "n_background": int(background.size),
-               "n_dropped": int(len(dropped)), "zone_cells": ZONE_CELLS,
+               "n_dropped": int(len(dropped)), "per_window": counts, "skipped": skipped, "zone_cells": ZONE_CELLS,
                "weights": "site cells: probability / cells of the site; background balanced to the summed "
                           "probability; mean weight 1",
                "seconds": round(time.perf_counter() - t0, 2)}

@@ -244,3 +244,25 @@ def test_a_dated_run_writes_periods_and_window_models(tmp_path, study_data):
     assert result.manifest["stages"]["periods"]["windows"]["early"]["best"] in ("logistic", "random_forest")
     log = (result.run_dir / "run.log").read_text()
     assert "periods: window early:" in log and "left out" in log
+
+
+def test_a_window_with_a_fold_lacking_sites_is_skipped_and_named():
+    rng = np.random.default_rng(0)
+    n_bg = 30
+    site = [f"S{i}" for i in range(8)]
+    # 8 one-cell sites, 4 per fold; sites S0..S3 (fold 0) are early, S4..S7 (fold 1) early and late
+    table = pd.DataFrame({"sample_id": np.arange(8 + n_bg), "label": np.r_[np.ones(8, int), np.zeros(n_bg, int)],
+                          "site_id": site + [""] * n_bg, "fold": np.r_[np.zeros(4, int), np.ones(4, int),
+                                                                       np.arange(n_bg) % 2],
+                          "slope": np.r_[rng.normal(2, 1, 8), rng.normal(0, 1, n_bg)]})
+    table["weight"] = sample_weights(table["label"].to_numpy(), table["site_id"].to_numpy())
+    win = window_probabilities(site, [0.0] * 4 + [0.0] * 4, [100.0] * 4 + [300.0] * 4,
+                               {"early": (0.0, 100.0), "late": (200.0, 300.0)}, min_probability=0.2)
+    lines = []
+    res = fit_window_models(table, win, features=["slope"], learners={"logistic": LEARNERS["logistic"]},
+                            log=lines.append)
+    # "late" holds only S4..S7, all in fold 1: fold 0 has no held-out site, so no model for it
+    assert res.metrics["window"].tolist() == ["early"] and list(res.summary["skipped"]) == ["late"]
+    assert "Fold 0 has no site cells" in res.summary["skipped"]["late"]
+    assert any(ln.startswith("window late: no models;") for ln in lines)
+    assert res.continuity.empty
