@@ -331,7 +331,7 @@ def fit_window_models(table, windows, *, features, categorical=(), learners, fol
                "zone_overlap": float(in_b[in_a].mean()) if in_a.any() else np.nan,
                "overlap_by_chance": float(in_b.mean()),
                "sites_in_next_zone": np.nan, "sites_in_own_zone": np.nan,
-               "n_zone_cells": int(background.size), "zone_cells": "background cells of the sample table"}
+               "n_zone_cells": int(background.size), "zone_cells": "run background sample"}
         if A["fold_ids"] is not None and A["fold_ids"] == B["fold_ids"]:  # fold k holds out the same ground
             row["sites_in_next_zone"] = _captured(A, B["fold_models"], B["high"], feats, area_ranks)
             row["sites_in_own_zone"] = _captured(A, A["fold_models"], A["high"], feats, area_ranks)
