@@ -576,6 +576,9 @@ def run_experiment(path, *, fresh=False, name=None, quiet=False, log=None, n_job
         grid = read_grid(exp["study"]["dem"])
         check_input_layers(exp, grid, log)
         check_learner_settings(exp)
+        from mlsites.periods._in_run import check_periods_in_run
+
+        check_periods_in_run(exp)  # bad dates stop the run here, not at its periods stage
     cache_dir = runs_dir / ".cache"
     with staged_folder(run_dir) as staging, staged_folder(models_dir) as model_staging:
         with log.stage("samples"):

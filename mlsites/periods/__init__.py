@@ -8,7 +8,9 @@ uniform or trapezoid date density (:class:`DateDensity`); ``monte_carlo`` and
 counts, changes and a uniform-through-time null; ``kernel_density`` maps the
 sites of a block; ``window_probabilities`` gives each site its probability of
 belonging to a named time window (sample weights for period models);
-``run_periods`` is the ``mlsites periods`` command.
+``fit_window_models`` cross-validates every learner per window on the same
+folds and compares consecutive windows (continuity); ``run_periods`` is the
+``mlsites periods`` command, and ``periods_in_run`` the periods stage of a run.
 """
 
 from mlsites.periods._aoristic import (
@@ -31,8 +33,20 @@ from mlsites.periods._montecarlo import (
     simulate_block_counts,
     simulate_null_counts,
 )
+from mlsites.periods._models import (
+    WindowModels,
+    fit_window_models,
+    window_table,
+    window_weights,
+    write_window_models,
+)
 from mlsites.periods._run import (
+    DatedSites,
     PeriodsResult,
+    check_dated_sites,
+    has_dates,
+    read_dated_sites,
+    write_periods,
     blocks_for_experiment,
     dates_for_experiment,
     density_from_settings,
@@ -63,6 +77,16 @@ __all__ = [
     "scott_bandwidth",
     "WindowWeights",
     "window_probabilities",
+    "WindowModels",
+    "window_weights",
+    "window_table",
+    "fit_window_models",
+    "write_window_models",
+    "DatedSites",
+    "read_dated_sites",
+    "check_dated_sites",
+    "write_periods",
+    "has_dates",
     "PeriodsResult",
     "run_periods",
     "density_from_settings",

@@ -122,6 +122,13 @@ def plot_density_maps(shade, densities, titles, extent, path, *, sites=None, squ
         Top of the common colour scale (default: the largest density).
     note : str
         Line printed under the panels (for example how sites are generalised).
+
+    Returns
+    -------
+    list of (left, right, bottom, top)
+        The axis limits of each panel as drawn: the map extent, whatever the
+        sites (a generalised square's centre may lie beyond the grid's edge and
+        used to widen its panel).
     """
     plt = _pyplot()
     n = len(densities)
@@ -154,11 +161,15 @@ def plot_density_maps(shade, densities, titles, extent, path, *, sites=None, squ
                 px, py, pw = sites[k]
                 ax.scatter(px, py, s=6, c="#1d3b57", alpha=np.clip(pw, 0.15, 1.0), linewidths=0)
             ax.set_title(titles[k], fontsize=8)
+            # scatter autoscales; markers beyond the edge must not widen one panel's map
+            ax.set_xlim(extent[0], extent[1])
+            ax.set_ylim(extent[2], extent[3])
         if image is not None:
             bar = fig.colorbar(image, ax=axes, shrink=0.6)
             bar.set_label("expected sites per km²")
         if note:
             fig.supxlabel(note, fontsize=7)
         _save(fig, path)
+        return [(*ax.get_xlim(), *ax.get_ylim()) for ax in axes.ravel()[:n]]
     finally:
         plt.close(fig)

@@ -23,8 +23,9 @@ from mlsites.periods._dates import DateRanges, date_ranges
 from mlsites.periods._montecarlo import ENVELOPE, NULL_MODEL, block_table, monte_carlo
 from mlsites.periods._windows import WindowWeights, window_probabilities
 
-__all__ = ["PeriodsResult", "run_periods", "density_from_settings", "dates_for_experiment",
-           "blocks_for_experiment", "windows_for_experiment", "MAX_MAP_BLOCKS"]
+__all__ = ["PeriodsResult", "DatedSites", "run_periods", "read_dated_sites", "check_dated_sites", "write_periods", "has_dates",
+           "density_from_settings", "dates_for_experiment", "blocks_for_experiment", "windows_for_experiment",
+           "MAX_MAP_BLOCKS"]
 
 #: Most blocks drawn as density maps; beyond this the maps are skipped (and the log says so).
 MAX_MAP_BLOCKS = 60
@@ -255,17 +256,13 @@ def run_periods(experiment, *, out_dir=None, fresh=False, show_sites=False, quie
     One Generator seeded with ``[study] seed`` draws the dated simulations, then
     the null ones.
     """
-    from mlsites.experiment._config import Experiment, load_experiment
     from mlsites._files import staged_folder
+    from mlsites.experiment._config import Experiment, load_experiment
     from mlsites.experiment._run import output_roots
-    from mlsites.grid import read_grid
-    from mlsites.periods._plots import plot_block_counts
-    from mlsites.sampling import read_sites, read_valid_mask
 
     t0 = time.perf_counter()
     log = log or (lambda m: None)
     exp = experiment if isinstance(experiment, Experiment) else load_experiment(experiment)
-    p, s = exp["periods"], exp["sites"]
     out = Path(out_dir) if out_dir is not None else output_roots(exp)[0] / f"{exp.name}_periods"
     out = out.resolve()
 
@@ -274,6 +271,110 @@ def run_periods(experiment, *, out_dir=None, fresh=False, show_sites=False, quie
             raise OutputExistsError(f"{out}: exists already; use --fresh to replace it or --out for another folder")
 
     reserve()
+    dated = read_dated_sites(exp, log=log)
+    with staged_folder(out) as staging:
+        summary = write_periods(staging, exp, dated, show_sites=show_sites, quiet=quiet, log=log, t0=t0)
+        reserve()  # a folder that appeared meanwhile is not replaced without fresh
+    log(f"periods: wrote {out} in {time.perf_counter() - t0:.1f} s")
+    return PeriodsResult(out_dir=out, table=dated.table, ranges=dated.ranges, blocks=dated.blocks,
+                         windows=dated.windows, summary=summary)
+
+
+def has_dates(exp) -> bool:
+    """True when the experiment's sites carry dates (year fields, or a category field with its table)."""
+    s, p = exp["sites"], exp["periods"]
+    return bool((s["start_field"] and s["end_field"]) or (p["category_field"] and p["categories"]))
+
+
+@dataclass(frozen=True)
+class DatedSites:
+    """What :func:`read_dated_sites` read and computed: the shared first half of the periods stage.
+
+    Attributes
+    ----------
+    grid : GridSpec
+    records : SiteRecords
+    ranges : DateRanges
+    blocks : TimeBlocks
+    density : DateDensity
+    mc : MonteCarloCounts
+    table : pandas.DataFrame
+        The per-block table.
+    weights : scipy.sparse matrix
+        Aoristic weight of each dated site (rows) in each block (columns).
+    n_partial : int
+        Sites with part of their range outside the span.
+    windows : WindowWeights or None
+    """
+
+    grid: object
+    records: object
+    ranges: DateRanges
+    blocks: TimeBlocks
+    density: DateDensity
+    mc: object
+    table: pd.DataFrame
+    weights: object
+    n_partial: int
+    windows: WindowWeights | None
+
+
+def read_dated_sites(exp, *, log=None) -> DatedSites:
+    """Read an experiment's sites and dates; blocks, Monte Carlo counts and window probabilities.
+
+    Used by ``mlsites periods`` (:func:`run_periods`) and by the periods stage of
+    a run, so both give the same numbers. Nothing is written.
+
+    Raises
+    ------
+    ConfigError, InputError, InsufficientDataError, CRSError
+    """
+    log = log or (lambda m: None)
+    grid, records, ranges, blocks, windows = check_dated_sites(exp, log=log)
+    p = exp["periods"]
+    density = density_from_settings(p)
+    seed = exp["study"]["seed"]
+    log(f"{blocks.n_blocks} blocks of {blocks.width:g} years over [{blocks.edges[0]:g}, {blocks.edges[-1]:g}), "
+        f"{density.kind} dates within ranges; {p['n_simulations']} simulations (seed {seed})")
+    mc = monte_carlo(ranges.start, ranges.end, blocks, n_simulations=p["n_simulations"], density=density,
+                     random_state=np.random.default_rng(seed))
+    table = block_table(blocks, mc)
+    weights = sparse_weights(ranges.start, ranges.end, blocks, density=density)
+    inside = np.asarray(weights.sum(axis=1)).ravel()
+    n_partial = int((inside < 1 - 1e-9).sum())
+    if n_partial:
+        log(f"{n_partial} site(s) have part of their range outside the span; only the part inside counts "
+            f"({float((1 - inside).sum()):.2f} site(s) of weight outside)")
+    if windows is not None:
+        for r in windows.windows.itertuples():
+            log(f"window {r.window} [{r.start:g}, {r.end:g}): {r.n_sites} sites kept (weight {r.weight_sum:.2f}), "
+                f"{r.n_left_out} left out (probability below {windows.min_probability:g} or no overlap)")
+    return DatedSites(grid=grid, records=records, ranges=ranges, blocks=blocks, density=density, mc=mc,
+                      table=table, weights=weights, n_partial=n_partial, windows=windows)
+
+
+def check_dated_sites(exp, *, log=None):
+    """Read the sites and check their dates, blocks and windows (no simulation); fast.
+
+    A run calls it with its other checks, before any sampling, so bad dates stop
+    the run at once rather than at its periods stage.
+
+    Returns
+    -------
+    (GridSpec, SiteRecords, DateRanges, TimeBlocks, WindowWeights or None)
+
+    Raises
+    ------
+    ConfigError, InputError, InsufficientDataError, CRSError
+        An end year before its start, a category missing from the table, a
+        window outside every site's range, blocks narrower than a year or more
+        than :data:`MAX_BLOCKS` of them, a geographic grid.
+    """
+    from mlsites.grid import read_grid
+    from mlsites.sampling import read_sites, read_valid_mask
+
+    log = log or (lambda m: None)
+    p, s = exp["periods"], exp["sites"]
     if not s["path"]:
         raise InputError(f"{exp.path}: [sites] path is missing; give the site records file")
     if not (s["start_field"] and s["end_field"]) and not p["category_field"]:
@@ -298,65 +399,57 @@ def run_periods(experiment, *, out_dir=None, fresh=False, show_sites=False, quie
         log("dating categories: " + "; ".join(f"{r.category} = [{r.start:g}, {r.end:g}): {r.n_sites} sites"
                                               for r in ranges.mapping.itertuples()))
     blocks = blocks_for_experiment(exp, ranges)
-    density = density_from_settings(p)
-    seed = exp["study"]["seed"]
-    log(f"{blocks.n_blocks} blocks of {blocks.width:g} years over [{blocks.edges[0]:g}, {blocks.edges[-1]:g}), "
-        f"{density.kind} dates within ranges; {p['n_simulations']} simulations (seed {seed})")
-    mc = monte_carlo(ranges.start, ranges.end, blocks, n_simulations=p["n_simulations"], density=density,
-                     random_state=np.random.default_rng(seed))
-    table = block_table(blocks, mc)
-    weights = sparse_weights(ranges.start, ranges.end, blocks, density=density)
-    inside = np.asarray(weights.sum(axis=1)).ravel()
-    n_partial = int((inside < 1 - 1e-9).sum())
-    if n_partial:
-        log(f"{n_partial} site(s) have part of their range outside the span; only the part inside counts "
-            f"({float((1 - inside).sum()):.2f} site(s) of weight outside)")
-    windows = windows_for_experiment(exp, ranges)
-    if windows is not None:
-        for r in windows.windows.itertuples():
-            log(f"window {r.window} [{r.start:g}, {r.end:g}): {r.n_sites} sites kept (weight {r.weight_sum:.2f}), "
-                f"{r.n_left_out} left out (probability below {windows.min_probability:g} or no overlap)")
+    return grid, records, ranges, blocks, windows_for_experiment(exp, ranges)
 
-    with staged_folder(out) as staging:
-        _write_csv(table, staging / "blocks.csv")
-        _write_csv(ranges.table.drop(columns=["row"]), staging / "site_dates.csv")
-        coo = weights.tocoo()
-        order = np.lexsort((coo.col, coo.row))
-        _write_csv(pd.DataFrame({"site_id": ranges.site_id[coo.row[order]],
-                                 "block_start": blocks.starts[coo.col[order]],
-                                 "block_end": blocks.ends[coo.col[order]], "weight": coo.data[order]}),
-                   staging / "site_blocks.csv")
-        dropped = pd.concat([records.dropped[["site_id", "reason"]], ranges.dropped], ignore_index=True)
-        _write_csv(dropped, staging / "dropped_dates.csv")
-        if len(ranges.mapping):
-            _write_csv(ranges.mapping, staging / "categories.csv")
-        if windows is not None:
-            _write_csv(windows.windows, staging / "windows.csv")
-            _write_csv(windows.weights, staging / "window_weights.csv")
-            _write_csv(windows.left_out, staging / "window_left_out.csv")
-        plot_block_counts(table, staging / "site_counts.png",
-                          title=f"{exp.name}: sites per {blocks.width:g}-year block "
-                                f"({p['n_simulations']} simulations)")
-        x, y = _site_points(records, ranges)
-        maps = _maps(staging, exp, grid, x, y, weights.tocsc(), blocks, table, show_sites=show_sites, quiet=quiet,
-                     log=log)
-        summary = {
-            "software": f"mlsites {__version__}", "experiment": exp.name, "experiment_file": str(exp.path),
-            "settings": p, "seed": seed, "n_simulations": mc.n_simulations, "random_generator":
-            "numpy default_rng(seed): dated simulations first, then the null ones",
-            "convention": _CONVENTION, "end_inclusive": ranges.end_inclusive,
-            "density": {"kind": density.kind, "ramp_share": density.ramp_share if density.kind == "trapezoid" else None},
-            "blocks": {"width_years": blocks.width, "origin_year": blocks.origin, "n_blocks": blocks.n_blocks,
-                       "first": float(blocks.edges[0]), "last": float(blocks.edges[-1])},
-            "envelope_quantiles": list(ENVELOPE), "null_model": NULL_MODEL,
-            "n_sites_read": records.n_read, "n_sites_dated": int(len(ranges.table)),
-            "n_records_dropped": int(len(dropped)), "n_sites_partly_outside_span": n_partial,
-            "categories": ranges.mapping.to_dict(orient="records"),
-            "windows": None if windows is None else windows.windows.to_dict(orient="records"),
-            "maps": maps, "show_sites": bool(show_sites),
-            "seconds": round(time.perf_counter() - t0, 2),
-        }
-        (staging / "periods.json").write_text(json.dumps(summary, indent=2, default=str) + "\n")
-        reserve()  # a folder that appeared meanwhile is not replaced without fresh
-    log(f"periods: wrote {out} in {time.perf_counter() - t0:.1f} s")
-    return PeriodsResult(out_dir=out, table=table, ranges=ranges, blocks=blocks, windows=windows, summary=summary)
+
+def write_periods(staging, exp, dated: DatedSites, *, show_sites=False, quiet=False, log=None, t0=None) -> dict:
+    """Write the periods files of :func:`run_periods` into the folder ``staging``; return ``periods.json``."""
+    from mlsites.periods._plots import plot_block_counts
+
+    t0 = time.perf_counter() if t0 is None else t0
+    log = log or (lambda m: None)
+    staging = Path(staging)
+    p = exp["periods"]
+    grid, records, ranges, blocks, density = dated.grid, dated.records, dated.ranges, dated.blocks, dated.density
+    mc, table, weights, n_partial, windows = dated.mc, dated.table, dated.weights, dated.n_partial, dated.windows
+    seed = exp["study"]["seed"]
+    _write_csv(table, staging / "blocks.csv")
+    _write_csv(ranges.table.drop(columns=["row"]), staging / "site_dates.csv")
+    coo = weights.tocoo()
+    order = np.lexsort((coo.col, coo.row))
+    _write_csv(pd.DataFrame({"site_id": ranges.site_id[coo.row[order]],
+                             "block_start": blocks.starts[coo.col[order]],
+                             "block_end": blocks.ends[coo.col[order]], "weight": coo.data[order]}),
+               staging / "site_blocks.csv")
+    dropped = pd.concat([records.dropped[["site_id", "reason"]], ranges.dropped], ignore_index=True)
+    _write_csv(dropped, staging / "dropped_dates.csv")
+    if len(ranges.mapping):
+        _write_csv(ranges.mapping, staging / "categories.csv")
+    if windows is not None:
+        _write_csv(windows.windows, staging / "windows.csv")
+        _write_csv(windows.weights, staging / "window_weights.csv")
+        _write_csv(windows.left_out, staging / "window_left_out.csv")
+    plot_block_counts(table, staging / "site_counts.png",
+                      title=f"{exp.name}: sites per {blocks.width:g}-year block "
+                            f"({p['n_simulations']} simulations)")
+    x, y = _site_points(records, ranges)
+    maps = _maps(staging, exp, grid, x, y, weights.tocsc(), blocks, table, show_sites=show_sites, quiet=quiet,
+                 log=log)
+    summary = {
+        "software": f"mlsites {__version__}", "experiment": exp.name, "experiment_file": str(exp.path),
+        "settings": p, "seed": seed, "n_simulations": mc.n_simulations, "random_generator":
+        "numpy default_rng(seed): dated simulations first, then the null ones",
+        "convention": _CONVENTION, "end_inclusive": ranges.end_inclusive,
+        "density": {"kind": density.kind, "ramp_share": density.ramp_share if density.kind == "trapezoid" else None},
+        "blocks": {"width_years": blocks.width, "origin_year": blocks.origin, "n_blocks": blocks.n_blocks,
+                   "first": float(blocks.edges[0]), "last": float(blocks.edges[-1])},
+        "envelope_quantiles": list(ENVELOPE), "null_model": NULL_MODEL,
+        "n_sites_read": records.n_read, "n_sites_dated": int(len(ranges.table)),
+        "n_records_dropped": int(len(dropped)), "n_sites_partly_outside_span": n_partial,
+        "categories": ranges.mapping.to_dict(orient="records"),
+        "windows": None if windows is None else windows.windows.to_dict(orient="records"),
+        "maps": maps, "show_sites": bool(show_sites),
+        "seconds": round(time.perf_counter() - t0, 2),
+    }
+    (staging / "periods.json").write_text(json.dumps(summary, indent=2, default=str) + "\n")
+    return summary

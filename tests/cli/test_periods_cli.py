@@ -111,3 +111,31 @@ def test_bad_input_is_one_line_exit_2_and_nothing_written(tmp_path, case, fragme
     assert len(errors) == 1 and errors[0].startswith("mlsites: error: "), res.stderr
     assert not (tmp_path / "out").exists()
     assert not [p for p in tmp_path.iterdir() if p.name.startswith(".")]
+
+
+@pytest.mark.parametrize("case, fragment", [
+    ("end_before_start", "have an end year before their start year"),
+    ("category_missing", "'third' (1 record)"),
+    ("window_outside", "time window 'far' [500, 600) overlaps no site's date range"),
+    ("too_many_blocks", "at most 10000 are allowed"),
+])
+def test_a_run_with_bad_dates_stops_at_its_checks(tmp_path, case, fragment):
+    # the same bad input through `mlsites run`: caught with the run's other checks, before any
+    # sampling, so no run folder and no cache is made
+    sites, periods, kw = SITES.copy(), "", {}
+    if case == "end_before_start":
+        sites.loc[0, ["start", "end"]] = [-3150.0, -3450.0]
+    elif case == "category_missing":
+        sites.loc[2, "phase"] = "third"
+    elif case == "window_outside":
+        periods = "[periods.windows]\nfar = [500, 600]\n"
+    else:
+        sites.loc[0, "start"] = -20000.0
+        kw = {"width": 1, "span": ""}
+    exp = _study(tmp_path, sites=sites, periods=periods, **kw)
+    before = set(tmp_path.iterdir())
+    res = CliRunner().invoke(cli, ["run", str(exp), "--quiet"])
+    assert res.exit_code == 2, res.output
+    errors = [ln for ln in res.stderr.splitlines() if not ln.startswith("mlsites: warning")]
+    assert len(errors) == 1 and errors[0].startswith("mlsites: error: ") and fragment in errors[0], res.stderr
+    assert set(tmp_path.iterdir()) == before  # nothing written, not even runs/.cache
