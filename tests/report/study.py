@@ -167,7 +167,7 @@ def add_stage_files(run_dir, models_dir, experiment, data):
     features, categorical = manifest["samples"]["features"], manifest["samples"]["categorical"]
     result = _explain(run_dir, models_dir, table, features, categorical)
     _contributions(run_dir, models_dir, result)
-    run_periods(experiment, out_dir=run_dir / "periods", quiet=True)
+    run_periods(experiment, out_dir=run_dir / "periods", fresh=True, quiet=True)
     sites = later_sites(run_dir)
     sites.to_file(data / "later_sites.gpkg", layer="later", driver="GPKG")
     _check(run_dir, sites)
