@@ -65,7 +65,7 @@ def periods_in_run(ctx):
         ctx.splitter.get_n_splits() if ctx.splitter is not None else int(ctx.table["fold"].nunique()))
     with tqdm(total=n_fits, desc="period models", unit="fit", disable=ctx.quiet, leave=False) as bar:
         models = fit_window_models(ctx.table, dated.windows, features=ctx.features, categorical=ctx.categorical,
-                                   learners=ctx.factories, fold_column="fold", splitter=splitter,
+                                   learners=_window_factories(ctx), fold_column="fold", splitter=splitter,
                                    random_state=ctx.seed, zone_targets=ev["zone_targets"],
                                    top_area_shares=tuple(ev["top_area_shares"]),
                                    n_repeats=exp["explain"]["n_repeats"], n_jobs=ctx.n_jobs, progress=bar,
@@ -77,3 +77,13 @@ def periods_in_run(ctx):
     out["n_dropped_site_windows"] = int(len(models.dropped))
     out["seconds"] = round(time.perf_counter() - t0, 2)
     return out
+
+
+def _window_factories(ctx):
+    """Learner factories per window table: the forest draws rows for the window's own sites."""
+    from mlsites.experiment._run import _learner_factories
+
+    def factories(table):
+        return _learner_factories(ctx.exp, ctx.categorical, ctx.seed, table)
+
+    return factories

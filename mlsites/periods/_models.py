@@ -197,8 +197,11 @@ def fit_window_models(table, windows, *, features, categorical=(), learners, fol
         From :func:`mlsites.periods.window_probabilities`. Windows are taken in
         time order (by start, then end); continuity compares each with the next.
     features, categorical : sequence of str
-    learners : dict of str to callable
-        Learner name -> zero-argument factory of a fresh estimator.
+    learners : dict of str to callable, or callable
+        Learner name -> zero-argument factory of a fresh estimator; or a function
+        of a window's sample table returning that dict (settings that depend on
+        the table, such as the forest's rows drawn per tree, are then set per
+        window).
     fold_column : str, default "fold"
         The fold of each row; every window uses it, so fold k holds out the same
         ground in every window.
@@ -281,7 +284,8 @@ def fit_window_models(table, windows, *, features, categorical=(), learners, fol
             f"sample table left out (listed with the reason), {int((wt['label'] == 0).sum())} background cells")
         split_obj = splitter(wt) if splitter is not None else None
         try:
-            cv = cross_validate(wt, features=feats, categorical=categorical, learners=learners,
+            factories = learners(wt) if callable(learners) else learners
+            cv = cross_validate(wt, features=feats, categorical=categorical, learners=factories,
                                 fold_column=fold_column, splitter=split_obj, random_state=random_state,
                                 n_jobs=n_jobs, progress=progress, **kwargs)
         except InsufficientDataError as exc:  # too few sites in some fold: say so, go on with the others
@@ -308,7 +312,7 @@ def fit_window_models(table, windows, *, features, categorical=(), learners, fol
                          "top_layer": str(top[r.learner]["layer"]),
                          "top_importance": float(top[r.learner]["importance_mean"])})
         best = str(cv.summary["learner"].iloc[0])
-        model = fit_learner(learners[best](), wt[feats], wt["label"].to_numpy(), sample_weight=wt["weight"].to_numpy())
+        model = fit_learner(factories[best](), wt[feats], wt["label"].to_numpy(), sample_weight=wt["weight"].to_numpy())
         per_window[name] = {"table": wt, "splits": splits, "best": best, "high": _high_share(cv.zones, best),
                             "bg_scores": np.asarray(model.predict_proba(X_bg))[:, 1],
                             "fold_models": cv.fold_models[best],
@@ -342,7 +346,7 @@ def fit_window_models(table, windows, *, features, categorical=(), learners, fol
                                              "zone_cells"])
     dropped = pd.concat(dropped_parts, ignore_index=True)
     summary = {"windows": windows.windows.to_dict(orient="records"), "min_probability": windows.min_probability,
-               "learners": list(learners), "fold_column": fold_column if splitter is None else None,
+               "learners": sorted({n for cv in results.values() for n in cv.summary["learner"]}), "fold_column": fold_column if splitter is None else None,
                "splitter": None if splitter is None else "rebuilt per window",
                "n_repeats": int(n_repeats), "seed": random_state, "n_background": int(background.size),
                "n_dropped": int(len(dropped)), "per_window": counts, "skipped": skipped, "zone_cells": ZONE_CELLS,
