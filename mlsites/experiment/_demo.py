@@ -224,10 +224,11 @@ def _source_folders():
 def prepare_demo_folder(out_dir, *, log=None) -> Path:
     """Lay out a runnable copy of the demo in ``out_dir``; return its experiment file.
 
-    ``out_dir`` gets ``experiments/demo.toml`` and ``demo_data/`` (copied from the
-    source folder, or built with :data:`DEMO_SETTINGS` when no copy is found), so
-    the experiment's relative paths (``../demo_data``, ``../runs``, ``../models``)
-    resolve inside ``out_dir``. Files already there are kept.
+    ``out_dir`` gets ``experiments/`` (demo.toml and its variants) and ``demo_data/``
+    (copied from the source folder, or built with :data:`DEMO_SETTINGS` when no
+    complete copy is found), so the experiments' relative paths (``../demo_data``,
+    ``../runs``, ``../models``) resolve inside ``out_dir``. Files already there
+    are kept.
 
     Raises
     ------
@@ -245,12 +246,15 @@ def prepare_demo_folder(out_dir, *, log=None) -> Path:
     toml = next((f / "experiments" / "demo.toml" for f in sources if (f / "experiments" / "demo.toml").exists()),
                 None)
     target = out_dir / "experiments" / "demo.toml"
-    if not target.exists():
-        if toml is None:
-            raise InputError("experiments/demo.toml not found next to the mlsites sources or in the working "
-                             "folder; run `mlsites demo` from the mlsites source folder")
+    if not target.exists() and toml is None:
+        raise InputError("experiments/demo.toml not found next to the mlsites sources or in the working "
+                         "folder; run `mlsites demo` from the mlsites source folder")
+    if toml is not None:
+        # the variants too (demo_*.toml extend demo.toml), so they run in OUT as well
         target.parent.mkdir(parents=True, exist_ok=True)
-        shutil.copy2(toml, target)
+        for path in sorted(toml.parent.glob("*.toml")):
+            if not (target.parent / path.name).exists():
+                shutil.copy2(path, target.parent / path.name)
     data = out_dir / "demo_data"
     if all((data / f).exists() for f in DEMO_FILES):
         return target
