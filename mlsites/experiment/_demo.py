@@ -29,7 +29,7 @@ __all__ = ["DEMO_FILES", "DEMO_SETTINGS", "DEMO_CATEGORIES", "DEMO_REGIMES", "wr
 DEMO_FILES = ("dem.tif", "soil.tif", "streams.gpkg", "sites.gpkg", "survey.gpkg", "later_sites.gpkg",
               "truth.tif", "neighbour_dem.tif")
 #: Settings of the files shipped in ``demo_data/`` (``experiments/demo.toml`` expects them).
-DEMO_SETTINGS = dict(shape=(600, 600), cellsize=10.0, n_sites=420, n_later=60, random_state=7)
+DEMO_SETTINGS = dict(shape=(600, 600), cellsize=10.0, n_sites=420, n_later=60, neighbour=True, random_state=7)
 #: Width of the neighbouring area east of the study area, and of its overlap with it,
 #: as shares of the study area's width (400 and 100 columns for the shipped demo).
 _NEIGHBOUR_SHARE, _OVERLAP_SHARE = 2 / 3, 1 / 6
@@ -91,7 +91,8 @@ def _round_to(array, step):
 
 
 def write_demo_data(directory, *, shape=(600, 600), cellsize: float = 10.0, n_sites: int = 360,
-                    n_later: int = 60, random_state: int = 7, overwrite: bool = False) -> dict:
+                    n_later: int = 60, neighbour: bool = False, random_state: int = 7,
+                    overwrite: bool = False) -> dict:
     """Write the fictional demo study into ``directory``.
 
     Parameters
@@ -107,6 +108,9 @@ def write_demo_data(directory, *, shape=(600, 600), cellsize: float = 10.0, n_si
     n_later : int, default 60
         Sites nobody recorded that become the "later found" sites (fewer if
         fewer went unrecorded).
+    neighbour : bool, default False
+        Also write ``neighbour_dem.tif``, with soils and channel lines over both
+        areas (see Notes); otherwise every file covers the study area only.
     random_state : int, default 7
         Seed of the landscape and the sites; the same seed gives the same files.
     overwrite : bool, default False
@@ -116,11 +120,11 @@ def write_demo_data(directory, *, shape=(600, 600), cellsize: float = 10.0, n_si
     -------
     dict of str to Path
         ``dem``, ``soil``, ``streams``, ``sites``, ``survey``, ``later_sites``,
-        ``truth``, ``neighbour_dem``.
+        ``truth`` and, with ``neighbour``, ``neighbour_dem``.
 
     Notes
     -----
-    The landscape is one valley of ``shape[0]`` rows and 1.5 times ``shape[1]``
+    With ``neighbour`` the landscape is one valley of ``shape[0]`` rows and 1.5 times ``shape[1]``
     columns; the study area is its first ``shape[1]`` columns and
     ``neighbour_dem.tif`` its last two thirds of ``shape[1]`` (one sixth of
     ``shape[1]`` shared with the study area: 400 and 100 columns for the demo). ``soil.tif`` and
@@ -156,21 +160,25 @@ def write_demo_data(directory, *, shape=(600, 600), cellsize: float = 10.0, n_si
     directory.mkdir(parents=True, exist_ok=True)
     rows, cols = shape
     width_m = min(shape) * cellsize
-    n_neighbour = max(1, round(_NEIGHBOUR_SHARE * cols))
-    whole = (rows, cols + n_neighbour - round(_OVERLAP_SHARE * cols))
+    n_neighbour = max(1, round(_NEIGHBOUR_SHARE * cols)) if neighbour else 0
+    whole = (rows, cols + n_neighbour - round(_OVERLAP_SHARE * cols)) if neighbour else shape
     options = dict(cellsize=cellsize, random_state=random_state, valley_width_m=min(1000.0, 0.3 * width_m),
                    relief_m=min(300.0, 0.05 * width_m))
     valley = make_landscape(whole, **options)
-    land = make_landscape(whole, window=Window(0, 0, cols, rows), **options)
+    land = make_landscape(whole, window=Window(0, 0, cols, rows), **options) if neighbour else valley
     # soil and channel lines of the whole valley, the DEM of the study area only
     valley.write(directory, overwrite=True)
-    # Elevations to the centimetre, so the shipped GeoTIFFs compress to a third.
-    neighbour = _round_to(valley.dem[:, whole[1] - n_neighbour:], 0.01)
     tags = {"source": "fictional landscape (mlsites.synthetic); not a real place"}
-    _write_float(paths["neighbour_dem"], make_landscape(whole, window=Window(whole[1] - n_neighbour, 0,
-                 n_neighbour, rows), **options).grid, neighbour, "elevation",
-                 dict(tags, layer="elevation", units="m", area="neighbouring area of the demo valley"))
+    if neighbour:
+        # Elevations to the centimetre (as the study DEM's), so the file compresses better.
+        window = Window(whole[1] - n_neighbour, 0, n_neighbour, rows)
+        _write_float(paths["neighbour_dem"], make_landscape(whole, window=window, **options).grid,
+                     _round_to(valley.dem[:, whole[1] - n_neighbour:], 0.01), "elevation",
+                     dict(tags, layer="elevation", units="m", area="neighbouring area of the demo valley"))
+    else:
+        paths.pop("neighbour_dem")
     del valley
+    # Elevations to the centimetre, so the shipped GeoTIFFs compress better.
     study_dem = _round_to(land.dem, 0.01)
     _write_float(paths["dem"], land.grid, study_dem, "elevation", dict(tags, layer="elevation", units="m"))
     dem = study_dem.astype(np.float64)
