@@ -29,9 +29,9 @@ __all__ = ["DEMO_FILES", "DEMO_SETTINGS", "DEMO_CATEGORIES", "DEMO_REGIMES", "wr
 DEMO_FILES = ("dem.tif", "soil.tif", "streams.gpkg", "sites.gpkg", "survey.gpkg", "later_sites.gpkg",
               "truth.tif", "neighbour_dem.tif")
 #: Settings of the files shipped in ``demo_data/`` (``experiments/demo.toml`` expects them).
-DEMO_SETTINGS = dict(shape=(600, 600), cellsize=10.0, n_sites=420, n_later=60, neighbour=True, random_state=7)
-#: Width of the neighbouring area east of the study area, and of its overlap with it,
-#: as shares of the study area's width (400 and 100 columns for the shipped demo).
+DEMO_SETTINGS = dict(shape=(600, 600), cellsize=10.0, n_sites=420, n_later=60, full=True, random_state=7)
+#: Width of the neighbouring area east of the study area (``full`` demo), and of its
+#: overlap with it, as shares of the study area's width (400 and 100 columns).
 _NEIGHBOUR_SHARE, _OVERLAP_SHARE = 2 / 3, 1 / 6
 
 
@@ -91,7 +91,7 @@ def _round_to(array, step):
 
 
 def write_demo_data(directory, *, shape=(600, 600), cellsize: float = 10.0, n_sites: int = 360,
-                    n_later: int = 60, neighbour: bool = False, random_state: int = 7,
+                    n_later: int = 0, full: bool = False, random_state: int = 7,
                     overwrite: bool = False) -> dict:
     """Write the fictional demo study into ``directory``.
 
@@ -104,13 +104,17 @@ def write_demo_data(directory, *, shape=(600, 600), cellsize: float = 10.0, n_si
     cellsize : float, default 10.0
         Cell size in metres.
     n_sites : int, default 360
-        Virtual sites placed before survey bias (about two in five get recorded).
-    n_later : int, default 60
-        Sites nobody recorded that become the "later found" sites (fewer if
-        fewer went unrecorded).
-    neighbour : bool, default False
-        Also write ``neighbour_dem.tif``, with soils and channel lines over both
-        areas (see Notes); otherwise every file covers the study area only.
+        Virtual sites placed before survey bias (about half get recorded).
+    n_later : int, default 0
+        Sites nobody recorded that become the "later found" sites of
+        ``later_sites.gpkg`` (fewer if fewer went unrecorded); 0 writes no such
+        file.
+    full : bool, default False
+        The shipped demo (:data:`DEMO_SETTINGS`): preferences that shift over
+        time, a neighbouring area and elevations to the centimetre (see
+        Notes). False gives the small studies of the tests: one preference
+        (:data:`mlsites.synthetic.DEFAULT_PREFERENCE`) and every file on the
+        study grid.
     random_state : int, default 7
         Seed of the landscape and the sites; the same seed gives the same files.
     overwrite : bool, default False
@@ -119,68 +123,71 @@ def write_demo_data(directory, *, shape=(600, 600), cellsize: float = 10.0, n_si
     Returns
     -------
     dict of str to Path
-        ``dem``, ``soil``, ``streams``, ``sites``, ``survey``, ``later_sites``,
-        ``truth`` and, with ``neighbour``, ``neighbour_dem``.
+        ``dem``, ``soil``, ``streams``, ``sites``, ``survey``, ``truth``, with
+        ``n_later`` also ``later_sites``, with ``full`` also ``neighbour_dem``.
 
     Notes
     -----
-    With ``neighbour`` the landscape is one valley of ``shape[0]`` rows and 1.5 times ``shape[1]``
-    columns; the study area is its first ``shape[1]`` columns and
-    ``neighbour_dem.tif`` its last two thirds of ``shape[1]`` (one sixth of
-    ``shape[1]`` shared with the study area: 400 and 100 columns for the demo). ``soil.tif`` and
-    ``streams.gpkg`` cover both areas, so a model can be mapped on the
-    neighbour with ``mlsites map CARD --dem neighbour_dem.tif``.
+    The preference surfaces use slope, northness, TPI (100 m disc) and the
+    distance to the carved channels; the models never see them, only the files.
+    ``truth.tif`` (float32, 0-1) is the intensity the sites were drawn from, up
+    to their clustering.
 
-    Each regime of :data:`DEMO_REGIMES` places its share of ``n_sites`` by its
-    own preference surface, computed from slope, northness, TPI (100 m disc)
-    and the distance to the carved channels. ``truth.tif`` is the intensity of
-    all sites together, ``sum_r n_r t_r / sum(t_r)`` scaled to a maximum of 1
-    (float32, 0-1): the surface the sites were drawn from, up to the
-    clustering; stored in steps of 1/4096. Elevations are rounded to 1 cm
-    before any layer is derived. Each site gets one of its regime's phases, or one time in
-    three one of its two-phase spans, with that category's years
+    With ``full`` the landscape is one valley of ``shape[0]`` rows and 1.5
+    times ``shape[1]`` columns; the study area is its first ``shape[1]``
+    columns and ``neighbour_dem.tif`` its last two thirds of ``shape[1]`` (one
+    sixth of ``shape[1]`` shared with the study area: 400 and 100 columns for
+    the demo). ``soil.tif`` and ``streams.gpkg`` cover both areas, so a model
+    can be mapped on the neighbour with ``mlsites map CARD --dem
+    neighbour_dem.tif``. Each regime of :data:`DEMO_REGIMES` places its share
+    of ``n_sites`` by its own preference surface ``t_r``; the truth is
+    ``sum_r n_r t_r / sum(t_r)`` scaled to a maximum of 1, stored in steps of
+    1/4096. Each site gets one of its regime's phases, or one time in three
+    one of its two-phase spans, with that category's years
     (:data:`DEMO_CATEGORIES`). Six walked strips 720 m wide record a site
     inside with probability 0.85 and outside 0.05; ``n_later`` of the
-    unrecorded sites, drawn at random, are the later-found sites
-    (``later_sites.gpkg``), most of them outside the strips.
+    unrecorded sites, drawn at random, are the later-found sites, most of
+    them outside the strips.
     """
-    import geopandas as gpd
-    import pandas as pd
     from rasterio.windows import Window
 
     from mlsites.synthetic import make_landscape, make_virtual_sites
-    from mlsites.synthetic._virtual_sites import _survey_strips
     from mlsites.terrain import distance_to_cells, northness, slope, tpi
 
     directory = Path(directory)
     paths = {Path(f).stem: directory / f for f in DEMO_FILES}
+    if not full:
+        paths.pop("neighbour_dem")
+    if not n_later:
+        paths.pop("later_sites")
     existing = [str(p) for p in paths.values() if p.exists()]
     if existing and not overwrite:
         raise OutputExistsError(f"{', '.join(existing)} already exist(s); use another folder or overwrite")
     directory.mkdir(parents=True, exist_ok=True)
     rows, cols = shape
     width_m = min(shape) * cellsize
-    n_neighbour = max(1, round(_NEIGHBOUR_SHARE * cols)) if neighbour else 0
-    whole = (rows, cols + n_neighbour - round(_OVERLAP_SHARE * cols)) if neighbour else shape
     options = dict(cellsize=cellsize, random_state=random_state, valley_width_m=min(1000.0, 0.3 * width_m),
                    relief_m=min(300.0, 0.05 * width_m))
-    valley = make_landscape(whole, **options)
-    land = make_landscape(whole, window=Window(0, 0, cols, rows), **options) if neighbour else valley
-    # soil and channel lines of the whole valley, the DEM of the study area only
-    valley.write(directory, overwrite=True)
     tags = {"source": "fictional landscape (mlsites.synthetic); not a real place"}
-    if neighbour:
-        # Elevations to the centimetre (as the study DEM's), so the file compresses better.
+    if full:
+        n_neighbour = max(1, round(_NEIGHBOUR_SHARE * cols))
+        whole = (rows, cols + n_neighbour - round(_OVERLAP_SHARE * cols))
+        valley = make_landscape(whole, **options)
+        # soil and channel lines of the whole valley, the DEM of the study area only
+        valley.write(directory, overwrite=True)
         window = Window(whole[1] - n_neighbour, 0, n_neighbour, rows)
+        # Elevations to the centimetre, so the shipped GeoTIFFs compress better.
         _write_float(paths["neighbour_dem"], make_landscape(whole, window=window, **options).grid,
                      _round_to(valley.dem[:, whole[1] - n_neighbour:], 0.01), "elevation",
                      dict(tags, layer="elevation", units="m", area="neighbouring area of the demo valley"))
+        del valley
+        land = make_landscape(whole, window=Window(0, 0, cols, rows), **options)
+        study_dem = _round_to(land.dem, 0.01)
+        _write_float(paths["dem"], land.grid, study_dem, "elevation", dict(tags, layer="elevation", units="m"))
     else:
-        paths.pop("neighbour_dem")
-    del valley
-    # Elevations to the centimetre, so the shipped GeoTIFFs compress better.
-    study_dem = _round_to(land.dem, 0.01)
-    _write_float(paths["dem"], land.grid, study_dem, "elevation", dict(tags, layer="elevation", units="m"))
+        land = make_landscape(shape, **options)
+        land.write(directory, overwrite=overwrite)
+        study_dem = land.dem
     dem = study_dem.astype(np.float64)
     layers = {
         "slope": slope(dem, cellsize),
@@ -188,39 +195,59 @@ def write_demo_data(directory, *, shape=(600, 600), cellsize: float = 10.0, n_si
         "tpi": tpi(dem, cellsize, radius=100.0),
         "stream_distance": distance_to_cells(land.streams > 0, cellsize),
     }
+    strip = max(10 * cellsize, 0.12 * width_m)
     rng = np.random.default_rng(random_state)
-    frames, truth = [], np.zeros(shape)
+    if full:
+        everyone, survey, truth = _shifting_sites(layers, land.grid, n_sites, strip, rng, random_state)
+        inside = everyone.within(survey.union_all()).to_numpy()
+        recorded = rng.random(len(everyone)) < np.where(inside, 0.85, 0.05)
+        sites = everyone[recorded].reset_index(drop=True)
+    else:
+        virtual = make_virtual_sites(layers, land.grid, n_sites=n_sites, strip_width_m=strip,
+                                     random_state=random_state)
+        sites, survey, truth = virtual.sites, virtual.survey, virtual.truth
+        everyone, recorded = virtual.all_sites, virtual.all_sites["recorded"].to_numpy()
+        everyone = everyone[sites.columns]
+    _write_vector(sites, paths["sites"], "sites")
+    _write_vector(survey, paths["survey"], "survey")
+    if n_later:
+        missed = np.flatnonzero(~recorded)
+        later = everyone.iloc[np.sort(rng.choice(missed, min(n_later, missed.size), replace=False))]
+        later = later.reset_index(drop=True)
+        later["site_id"] = [f"LF{i:03d}" for i in range(len(later))]
+        _write_vector(later, paths["later_sites"], "later_sites")
+    truth = np.where(np.isnan(study_dem), np.nan, truth / np.nanmax(truth))
+    # Steps of 1/4096 keep the file small; ranks and AUCs do not notice them.
+    _write_float(paths["truth"], land.grid, _round_to(truth, 1 / 4096), "true preference surface",
+                 dict(tags, layer="true preference surface", units="relative intensity 0-1"))
+    return paths
+
+
+def _shifting_sites(layers, grid, n_sites, strip_width_m, rng, random_state):
+    """Sites of every regime of DEMO_REGIMES (all placed, none yet recorded), survey strips, truth."""
+    import geopandas as gpd
+    import pandas as pd
+
+    from mlsites.synthetic import make_virtual_sites
+    from mlsites.synthetic._virtual_sites import _survey_strips
+
+    frames, truth = [], np.zeros(grid.shape)
     for k, (share, phases, spans, preference) in enumerate(DEMO_REGIMES.values()):
         n = max(1, round(share * n_sites))
-        placed = make_virtual_sites(layers, land.grid, n_sites=n, preference=preference,
-                                    n_survey_strips=1, detect_inside=1.0, detect_outside=1.0,
-                                    random_state=random_state + 1 + k)
+        placed = make_virtual_sites(layers, grid, n_sites=n, preference=preference, n_survey_strips=1,
+                                    detect_inside=1.0, detect_outside=1.0, random_state=random_state + 1 + k)
         truth += n * np.nan_to_num(placed.truth) / np.nansum(placed.truth)
         span = rng.random(n) < _SPAN_SHARE
         names = np.where(span, rng.choice(spans, n), rng.choice(phases, n))
         frame = placed.all_sites[["kind", "certainty", "geometry"]].copy()
         frame.insert(0, "phase", names)
         frames.append(frame)
-    sites = gpd.GeoDataFrame(pd.concat(frames, ignore_index=True), geometry="geometry", crs=land.grid.crs)
+    sites = gpd.GeoDataFrame(pd.concat(frames, ignore_index=True), geometry="geometry", crs=grid.crs)
     sites.insert(0, "site_id", [f"VS{i:04d}" for i in range(len(sites))])
     sites.insert(2, "start_year", [DEMO_CATEGORIES[p][0] for p in sites["phase"]])
     sites.insert(3, "end_year", [DEMO_CATEGORIES[p][1] for p in sites["phase"]])
-    strip = max(10 * cellsize, 0.12 * width_m)
-    survey = _survey_strips(land.grid, rng, 6, strip, (1.0, 2.0, 3.0))
-    inside = sites.within(survey.union_all()).to_numpy()
-    recorded = rng.random(len(sites)) < np.where(inside, 0.85, 0.05)
-    missed = np.flatnonzero(~recorded)
-    later = np.sort(rng.choice(missed, min(n_later, missed.size), replace=False))
-    later_sites = sites.iloc[later].reset_index(drop=True)
-    later_sites["site_id"] = [f"LF{i:03d}" for i in range(len(later_sites))]
-    _write_vector(sites[recorded].reset_index(drop=True), paths["sites"], "sites")
-    _write_vector(later_sites, paths["later_sites"], "later_sites")
-    _write_vector(survey, paths["survey"], "survey")
-    truth[np.isnan(study_dem)] = np.nan
-    # Steps of 1/4096 keep the file small; ranks and AUCs do not notice them.
-    _write_float(paths["truth"], land.grid, _round_to(truth / np.nanmax(truth), 1 / 4096), "true preference surface",
-                 dict(tags, layer="true preference surface", units="relative intensity 0-1"))
-    return paths
+    survey = _survey_strips(grid, rng, 6, strip_width_m, (1.0, 2.0, 3.0))
+    return sites, survey, truth
 
 
 def _source_folders():
