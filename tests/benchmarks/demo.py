@@ -60,7 +60,8 @@ def run_watched(cmd, env=None, interval=0.1):
     """Run ``cmd``; return (returncode, stderr, seconds, peak summed RSS of its process tree in MB)."""
     peak = [0.0]
     t0 = time.perf_counter()
-    proc = subprocess.Popen(cmd, env=env, stderr=subprocess.PIPE, text=True)
+    # the command's own table goes nowhere, so this script prints one JSON line only
+    proc = subprocess.Popen(cmd, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
 
     def watch():
         while proc.poll() is None:
