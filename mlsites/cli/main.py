@@ -12,7 +12,7 @@ from mlsites import __version__
 #: Subcommands, imported only when called so ``mlsites --help`` starts fast.
 _COMMANDS = {
     "terrain": ("mlsites.cli.terrain", "terrain", "Derive terrain layers from a DEM."),
-    "demo": ("mlsites.cli.demo", "demo", "Build the fictional demo landscape and run what exists."),
+    "demo": ("mlsites.cli.demo", "demo", "Write the fictional demo study and run every stage on it."),
     "run": ("mlsites.cli.run", "run", "Run an experiment file end to end."),
     "sample": ("mlsites.cli.sample", "sample", "Build the sample table and folds of an experiment."),
     "periods": ("mlsites.cli.periods", "periods", "Sites through time: blocks, envelopes, density maps."),

@@ -11,12 +11,15 @@ from mlsites.cli.options import echo_unless, quiet_option
 @click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False),
               help="Folder to create for the map (refused if it exists, unless --fresh).")
 @click.option("--dem", type=click.Path(dir_okay=False),
-              help="Map this DEM instead of the study's: its layers are derived with the model card's settings.")
+              help="Map this DEM instead of the study's, for example a neighbouring area: its terrain layers are "
+              "derived with the model card's settings; it must lie inside the model's other input layers "
+              "(default: the study's own layers).")
 @click.option("--jobs", "n_jobs", type=click.IntRange(1), default=1, show_default=True,
               help="Worker processes (or local dask workers); the result does not depend on it.")
 @click.option("--scheduler", metavar="ADDRESS|local",
               help="Send the windows to a dask.distributed scheduler (tcp://HOST:PORT), or 'local' for a local "
-              "cluster of --jobs workers; needs the scale extra and the same files on every worker.")
+              "cluster of --jobs workers; needs the scale extra and the same files on every worker (default: "
+              "worker processes on this machine).")
 @click.option("--fresh", is_flag=True, help="Replace an existing output folder and derive --dem layers again.")
 @quiet_option
 @handle_errors

@@ -2,8 +2,8 @@
 
 import click
 
-quiet_option = click.option("--quiet", "-q", is_flag=True, help="No progress bars or stage lines.")
-overwrite_option = click.option("--overwrite", is_flag=True, help="Replace existing outputs.")
+quiet_option = click.option("--quiet", "-q", is_flag=True, help="No progress bars or stage lines (errors and warnings still show).")
+overwrite_option = click.option("--overwrite", is_flag=True, help="Replace existing outputs (default: refuse to overwrite).")
 
 
 def echo_unless(quiet):

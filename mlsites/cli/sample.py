@@ -18,31 +18,56 @@ def _layer_pairs(ctx, param, values):
     return out
 
 
+_FILE = "default: the experiment file's value"
+
+
 @click.command()
 @click.argument("experiment", required=False, type=click.Path(dir_okay=False))
 @click.option("--out", "out_dir", type=click.Path(file_okay=False),
-              help="Output folder (default: RUNS_DIR/NAME/samples).")
-@click.option("--dem", type=click.Path(dir_okay=False), help="DEM defining the study grid.")
-@click.option("--sites", type=click.Path(dir_okay=False), help="Site records (vector file or CSV).")
-@click.option("--id-field", help="Site id column (default site_id).")
-@click.option("--x-field", help="CSV x column.")
-@click.option("--y-field", help="CSV y column.")
-@click.option("--crs", help="CRS of CSV coordinates, e.g. EPSG:32631.")
+              help="Output folder (default: RUNS_DIR/NAME/samples; required without EXPERIMENT).")
+@click.option("--dem", type=click.Path(dir_okay=False),
+              help=f"DEM whose CRS, cell size and extent define the study grid ({_FILE}; required without "
+              "EXPERIMENT).")
+@click.option("--sites", type=click.Path(dir_okay=False),
+              help=f"Site records: points or polygons (GeoPackage, GeoJSON, Shapefile) or a CSV with coordinate "
+              f"columns ({_FILE}; required without EXPERIMENT).")
+@click.option("--id-field", help="Column with the site ids (default: the experiment file's, else site_id).")
+@click.option("--x-field", help=f"Column of x coordinates in a CSV, in the units of --crs ({_FILE}).")
+@click.option("--y-field", help=f"Column of y coordinates in a CSV, in the units of --crs ({_FILE}).")
+@click.option("--crs", help=f"CRS of the CSV coordinates, e.g. EPSG:32631 ({_FILE}; a vector file brings its own).")
 @click.option("--layer", "inputs", multiple=True, callback=_layer_pairs, metavar="NAME=PATH[:categorical]",
-              help="Extra raster layer (repeatable).")
-@click.option("--terrain-layers", callback=comma_names, help="Comma-separated terrain layers to derive.")
-@click.option("--tpi-radii", "tpi_radii_m", callback=comma_floats, help="TPI radii in metres, comma-separated.")
-@click.option("--site-buffer", "site_buffer_m", type=float, help="Site buffer radius, metres.")
-@click.option("--background", "background_count", type=int, help="Number of background cells.")
-@click.option("--exclusion", "exclusion_m", type=float, help="Keep background this far from sites, metres.")
-@click.option("--survey", "survey_areas", type=click.Path(dir_okay=False), help="Survey-coverage polygons.")
-@click.option("--survey-mode", type=click.Choice(SURVEY_MODES), help="Use of the survey polygons.")
-@click.option("--effort-field", help="Survey effort column (weighted mode).")
-@click.option("--fold-method", type=click.Choice(FOLD_METHODS), help="How folds are made.")
-@click.option("--folds", "n_splits", type=int, help="Number of folds.")
-@click.option("--block-size", "block_size_m", type=float, help="Block size in metres (default: from variograms).")
-@click.option("--buffer", "buffer_m", type=float, help="Buffer of buffered leave-one-out, metres.")
-@click.option("--seed", type=int, help="Random seed.")
+              help="Another raster layer, aligned onto the study grid; add :categorical for class codes such as "
+              "soil types. Repeatable (default: the experiment file's [inputs]).")
+@click.option("--terrain-layers", callback=comma_names,
+              help=f"Terrain layers to derive from the DEM, comma-separated, e.g. slope,tpi ({_FILE}, else the "
+              "standard set).")
+@click.option("--tpi-radii", "tpi_radii_m", callback=comma_floats,
+              help=f"Disc radii of the topographic position index in metres, comma-separated, e.g. 100,500 "
+              f"({_FILE}, else 100,500).")
+@click.option("--site-buffer", "site_buffer_m", type=float,
+              help=f"Every cell within this many metres of a site counts as a site cell ({_FILE}, else 0: the "
+              "cell holding the point).")
+@click.option("--background", "background_count", type=int,
+              help=f"Number of background cells drawn from the study area ({_FILE}, else 10000).")
+@click.option("--exclusion", "exclusion_m", type=float,
+              help=f"No background cell within this many metres of a site ({_FILE}, else 0; above 0 the "
+              "background becomes pseudo-absences).")
+@click.option("--survey", "survey_areas", type=click.Path(dir_okay=False),
+              help=f"Polygons of the surveyed areas ({_FILE}, else none: background from the whole study area).")
+@click.option("--survey-mode", type=click.Choice(SURVEY_MODES),
+              help=f"inside: background only inside the surveyed areas; weighted: everywhere, in proportion to "
+              f"--effort-field ({_FILE}, else inside).")
+@click.option("--effort-field", help=f"Column of survey effort in --survey, for --survey-mode weighted ({_FILE}).")
+@click.option("--fold-method", type=click.Choice(FOLD_METHODS),
+              help=f"How samples are split for spatial cross-validation ({_FILE}, else square_blocks).")
+@click.option("--folds", "n_splits", type=int,
+              help=f"Number of folds, at least 2 ({_FILE}, else 5).")
+@click.option("--block-size", "block_size_m", type=float,
+              help=f"Edge of the square or hexagon blocks in metres ({_FILE}, else suggested from the layers' "
+              "spatial autocorrelation).")
+@click.option("--buffer", "buffer_m", type=float,
+              help=f"Radius in metres left out around the held-out site in buffered_leave_one_out ({_FILE}).")
+@click.option("--seed", type=int, help=f"Whole-number seed of every random draw ({_FILE}, else 0).")
 @click.option("--fresh", is_flag=True, help="Replace existing sample files and ignore cached layers and samples.")
 @quiet_option
 @handle_errors

@@ -18,16 +18,29 @@ def _pairs(ctx, param, values):
 
 @click.command()
 @click.argument("dem", type=click.Path(dir_okay=False))
-@click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Output folder.")
-@click.option("--layers", callback=comma_names, help="Comma-separated layer names (default: the standard set).")
-@click.option("--tpi-radii", callback=comma_floats, help="TPI disc radii in metres, comma-separated (default 100,500).")
-@click.option("--landform-lookup", type=int, default=20, show_default=True, help="Geomorphon lookup distance in cells.")
-@click.option("--landform-flatness", type=float, default=1.0, show_default=True, help="Geomorphon flatness threshold in degrees.")
-@click.option("--stream-threshold", type=float, default=0.5, show_default=True, help="Contributing area of a stream cell, km2.")
+@click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False),
+              help="Folder for one GeoTIFF per layer and terrain.json.")
+@click.option("--layers", callback=comma_names,
+              help="Layers to derive, comma-separated, e.g. slope,northness,tpi (default: the standard set; "
+              "the README lists every layer).")
+@click.option("--tpi-radii", callback=comma_floats,
+              help="Disc radii of the topographic position index in metres, comma-separated (default 100,500).")
+@click.option("--landform-lookup", type=int, default=20, show_default=True,
+              help="How far the landform classes (geomorphons) look in each direction, in cells.")
+@click.option("--landform-flatness", type=float, default=1.0, show_default=True,
+              help="Slope below which the landform classes count a direction as level, in degrees.")
+@click.option("--stream-threshold", type=float, default=0.5, show_default=True,
+              help="Area draining into a cell, in km2, from which it counts as a stream (for stream_distance and "
+              "height_above_drainage).")
 @click.option("--distance-to", "vectors", multiple=True, callback=_pairs, metavar="NAME=PATH",
-              help="Vector layer turned into a distance_NAME layer (repeatable).")
-@click.option("--stream-lines", type=click.Path(dir_okay=False), help="Measure stream_distance to these lines instead of DEM-derived streams.")
-@click.option("--block-rows", type=int, help="Rows per processing window (default: about 8 M cells a window).")
+              help="A vector layer (lines, points or polygons) turned into a layer distance_NAME in metres. "
+              "Repeatable (default: none).")
+@click.option("--stream-lines", type=click.Path(dir_okay=False),
+              help="Measure stream_distance to these mapped channel lines (default: to the streams derived from "
+              "the DEM).")
+@click.option("--block-rows", type=int,
+              help="Rows per processing window; lower it if memory runs short (default: about 8 million cells a "
+              "window).")
 @overwrite_option
 @quiet_option
 @handle_errors

@@ -432,10 +432,14 @@ def _check_values(s, bad):
     if s["terrain"]["stream_lines"] and not Path(s["terrain"]["stream_lines"]).exists():
         bad("terrain.stream_lines", f"file not found: {s['terrain']['stream_lines']}")
     sa = s["sampling"]
+    if sa["survey_mode"] == "none":
+        # Lets a variant switch off the survey areas its base file names: the
+        # background then comes from the whole study area, as without survey_areas.
+        sa["survey_areas"], sa["survey_mode"] = None, "inside"
     if sa["survey_areas"] and not Path(sa["survey_areas"]).exists():
         bad("sampling.survey_areas", f"file not found: {sa['survey_areas']}")
     if sa["survey_mode"] not in SURVEY_MODES:
-        bad("sampling.survey_mode", f"{sa['survey_mode']!r} is not one of {', '.join(SURVEY_MODES)}")
+        bad("sampling.survey_mode", f"{sa['survey_mode']!r} is not one of {', '.join(SURVEY_MODES)}, none")
     if sa["survey_mode"] == "weighted" and not sa["effort_field"]:
         bad("sampling.effort_field", "survey_mode = \"weighted\" needs effort_field, the column of survey effort")
     if sa["drop_unsurveyed_sites"] and not (sa["survey_areas"] and sa["survey_mode"] == "inside"):

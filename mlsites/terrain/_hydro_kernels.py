@@ -355,7 +355,7 @@ def _stream_cells_kernel(acc, min_cells, out):
 # --------------------------------------------------------------------- HAND -----
 @ngjit
 def _hand_kernel(z, direction, streams, out, n_rows, n_cols):
-    """Height above the first stream cell on the D8 path, on flat arrays.
+    """Height above the first stream cell on the D8 path (or its last cell), on flat arrays.
 
     ``out`` first memoises the elevation of the drainage stream cell of every
     resolved cell (-inf = not yet resolved), so each cell is walked at most twice.
@@ -376,7 +376,9 @@ def _hand_kernel(z, direction, streams, out, n_rows, n_cols):
                 break
             r = _receiver(direction, c, n_rows, n_cols)
             if r < 0:
-                v = np.nan
+                # The path ends without a stream (it leaves the grid at an edge or
+                # nodata cell, or stops on a flat): its last cell is the drainage.
+                v = z[c]
                 break
             c = r
         end = c

@@ -321,11 +321,23 @@ def height_above_drainage(filled, direction, streams):
     -------
     hand : ndarray of float32, shape (rows, cols)
         ``z(cell) - z(s)`` in metres, where ``s`` is the first stream cell met
-        following D8 from the cell; 0 on stream cells. NaN on nodata and where
-        the path ends (outlet, grid edge, nodata) before reaching a stream.
+        following D8 from the cell; 0 on stream cells. Where the path ends
+        before reaching a stream, ``s`` is the path's last cell (see Notes).
+        NaN only on nodata: every cell with an elevation gets a value.
 
     Notes
     -----
+    Edge rule: a path that reaches no stream ends at an outlet, the cell
+    where the water leaves the grid (an edge cell, or a cell next to nodata,
+    with no lower neighbour; on a DEM filled without epsilon also a flat).
+    That outlet counts as the drainage, so such cells get their height above
+    the point where their water leaves the study area, and the outlet itself
+    gets 0. The true drainage lies beyond the grid and is at most that high,
+    so near the edges HAND is a lower bound; clip the DEM with a margin of a
+    few hundred metres around the study area to keep edge effects out of it.
+    Without this rule, hillslopes draining off the grid would have no value
+    and a map would be blank there.
+
     Because both elevations come from the same filled DEM and D8 only goes
     downhill, HAND >= 0. Every cell is resolved once: the elevation of its
     drainage cell is memoised, so later paths stop at the first resolved cell

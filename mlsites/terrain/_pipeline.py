@@ -59,7 +59,7 @@ WHOLE_GRID_LAYERS = {
     "flow_accumulation": ("cells draining through each cell, itself included", "cells"),
     "streams": ("stream cells: contributing area above the threshold", "1 stream, 0 not"),
     "stream_distance": ("Euclidean distance to the nearest stream cell", "metres"),
-    "height_above_drainage": ("height above the stream cell reached along the D8 path (HAND)", "metres"),
+    "height_above_drainage": ("height above the stream cell (or grid-edge outlet) reached along the D8 path (HAND)", "metres"),
     "distance_{name}": ("Euclidean distance to the features of a vector layer", "metres"),
 }
 #: What ``mlsites terrain`` writes when no layers are named.

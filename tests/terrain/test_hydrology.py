@@ -146,13 +146,14 @@ def accumulation_reference(direction):
 
 
 def hand_reference(z, direction, streams):
+    # Walk D8 to the first stream cell; a path that ends first (outlet) is measured
+    # against its last cell (the documented edge rule of height_above_drainage).
     out = np.full(z.shape, np.nan)
     for i, j in zip(*np.nonzero(direction != 255)):
-        cell = (i, j)
+        cell = last = (i, j)
         while cell is not None and streams[cell] != 1:
-            cell = downstream(direction, *cell)
-        if cell is not None:
-            out[i, j] = float(z[i, j]) - float(z[cell])
+            last, cell = cell, downstream(direction, *cell)
+        out[i, j] = float(z[i, j]) - float(z[last if cell is None else cell])
     return out
 
 
@@ -364,6 +365,34 @@ def test_hand_matches_path_walk_and_is_non_negative(dem):
     assert np.all(hand[streams == 1] == 0)
     assert np.all(hand[np.isfinite(hand)] >= 0)
     assert np.all(np.isnan(hand[np.isnan(dem)]))
+
+
+def test_hand_has_a_value_on_every_valid_cell(dem):
+    # Issue 11: hillslopes draining off the grid without meeting a stream were NaN.
+    filled = fill_depressions(dem)
+    direction = flow_direction(filled, 1.0)
+    streams = stream_cells(flow_accumulation(direction), threshold_km2=8e-6, cell_area_m2=1.0)
+    hand = height_above_drainage(filled, direction, streams)
+    np.testing.assert_array_equal(np.isnan(hand), np.isnan(dem))
+
+
+def test_hand_plane_draining_off_the_edge():
+    # Analytic case: z = 0.5 m/m falling east on 10 m cells, a stream along column 3.
+    # East is the steepest drop (0.5 m/m; diagonals 5/14.14 = 0.354), so cells west
+    # of the stream drain into it and cells east of it drain off the east edge, where
+    # the last column is the outlet: HAND = the height above that edge cell.
+    n_rows, n_cols, cell, c_stream = 6, 10, 10.0, 3
+    i, j = np.mgrid[0:n_rows, 0:n_cols]
+    z = (0.5 * (n_cols - 1 - j) * cell + 100.0).astype(np.float32)
+    streams = (j == c_stream).astype(np.uint8)
+    direction = flow_direction(z, cell)
+    np.testing.assert_array_equal(direction, np.where(j == n_cols - 1, 0, 1))
+    expected = np.where(j <= c_stream, 0.5 * (c_stream - j) * cell, 0.5 * (n_cols - 1 - j) * cell)
+    hand = height_above_drainage(z, direction, streams)
+    assert_raster_allclose(hand, expected, rtol=0, atol=1e-5)  # multiples of 5 m, exact
+    # No stream at all: every cell is measured against the east edge.
+    hand = height_above_drainage(z, direction, np.zeros_like(streams))
+    assert_raster_allclose(hand, 0.5 * (n_cols - 1 - j) * cell, rtol=0, atol=1e-5)
 
 
 def test_hand_shape_mismatch():
