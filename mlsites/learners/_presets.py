@@ -490,7 +490,7 @@ def _gradient_boosting(*, random_state, categorical_features, n_jobs, **params):
 
 
 def _fuzzy(*, random_state, categorical_features, n_jobs, **params):
-    """Percentile-fuzzy suitability (percentiles, class densities and one gamma)."""
+    """Percentile-fuzzy suitability (percentiles, class densities, layers chosen forward, one gamma)."""
     model = FuzzySuitability(categorical_features=list(categorical_features) or None)
     return _finish(None, model, params, "fuzzy")
 

@@ -29,7 +29,8 @@ X_PROBE = np.array([10, 14, 19, 26, 31, 40, 50], dtype=float)
 MU_LINEAR = [0, 0.126214, 1, 1, 0.864341, 0.166667, 0]
 MU_COSINE = [0, 0.038793, 1, 1, 0.955275, 0.066987, 0]
 # the method as METHODS.md §10 states it: P5/25/75/95, trapezoids reaching 0, one layer
-PLAIN = dict(percentiles=(5, 25, 75, 95), membership_floor=0.0, operator="minimum")
+# (every layer: the rule choosing a subset of layers is ours, tested under "layer selection")
+PLAIN = dict(percentiles=(5, 25, 75, 95), membership_floor=0.0, operator="minimum", layer_selection="all")
 
 
 @pytest.fixture
@@ -263,7 +264,7 @@ def test_estimator_combines_layers_like_reference():
         ("maximum", np.maximum(mu1, mu2)),
         ("gamma_operator", fas**0.7 * fap**0.3),
     ]:
-        model = FuzzySuitability(operator=operator, gamma=0.7, percentiles=(5, 25, 75, 95),
+        model = FuzzySuitability(operator=operator, gamma=0.7, percentiles=(5, 25, 75, 95), layer_selection="all",
                                  membership_floor=0.0, rescale_product=False).fit(X, y)
         got = model.predict_proba(probe)[:, 1]
         np.testing.assert_allclose(got, expected, rtol=0, atol=1e-5)
@@ -329,7 +330,7 @@ def test_gamma_is_chosen_from_the_training_rows():
     # two layers, sites concentrated in the middle of the first one only
     X = np.column_stack([np.where(y == 1, rng.normal(0, 0.5, 300), rng.normal(0, 2, 300)), rng.normal(size=300)])
     w = np.where(y == 1, 1.0, 0.25)
-    model = FuzzySuitability(membership_floor=0.1).fit(X, y, sample_weight=w)
+    model = FuzzySuitability(membership_floor=0.1, layer_selection="all").fit(X, y, sample_weight=w)
     mu = model.predict_memberships(X)
     fap, fas = mu.prod(axis=1), 1 - (1 - mu).prod(axis=1)
     grid = np.linspace(0, 1, 21)
@@ -343,7 +344,7 @@ def test_gamma_is_chosen_from_the_training_rows():
     # a gamma given is used as it is
     assert FuzzySuitability(gamma=0.4).fit(X, y).gamma_ == 0.4
     # only the training rows count: a model refitted on half the rows chooses from those
-    half = FuzzySuitability(membership_floor=0.1).fit(X[::2], y[::2], sample_weight=w[::2])
+    half = FuzzySuitability(membership_floor=0.1, layer_selection="all").fit(X[::2], y[::2], sample_weight=w[::2])
     mu_h = half.predict_memberships(X[::2])
     fap_h, fas_h = mu_h.prod(axis=1), 1 - (1 - mu_h).prod(axis=1)
     auc_h = [roc_auc_score(y[::2], fas_h**g * fap_h ** (1 - g), sample_weight=w[::2]) for g in grid]
@@ -358,7 +359,7 @@ def test_rescaled_product_is_the_root_and_keeps_the_order():
     rng = np.random.default_rng(9)
     X = rng.normal(size=(200, 4))
     y = (rng.random(200) < 0.3).astype(int)
-    kwargs = dict(operator="algebraic_product", membership_floor=0.1)
+    kwargs = dict(operator="algebraic_product", membership_floor=0.1, layer_selection="all")
     root = FuzzySuitability(**kwargs).fit(X, y)
     plain = FuzzySuitability(rescale_product=False, **kwargs).fit(X, y)
     mu = root.predict_memberships(X)
@@ -366,7 +367,7 @@ def test_rescaled_product_is_the_root_and_keeps_the_order():
     np.testing.assert_allclose(plain.predict_proba(X)[:, 1], mu.prod(axis=1), rtol=1e-12)
     np.testing.assert_array_equal(rankdata(root.predict_proba(X)[:, 1]), rankdata(plain.predict_proba(X)[:, 1]))
     # minimum and maximum are already on the scale of one membership: no root
-    low = FuzzySuitability(operator="minimum", membership_floor=0.1).fit(X, y)
+    low = FuzzySuitability(operator="minimum", membership_floor=0.1, layer_selection="all").fit(X, y)
     np.testing.assert_allclose(low.predict_proba(X)[:, 1], low.predict_memberships(X).min(axis=1), rtol=1e-12)
 
 
@@ -378,8 +379,9 @@ def test_floor_keeps_cells_apart():
     X, y = _sites_and_background(SITES)
     X = np.column_stack([X[:, 0], X[:, 0]])
     probe = np.column_stack([np.full(3, 100.0), [20.0, 30.0, 40.0]])
-    plain = FuzzySuitability(operator="algebraic_product", membership_floor=0.0).fit(X, y)
-    floored = FuzzySuitability(operator="algebraic_product", membership_floor=0.2).fit(X, y)
+    both = dict(operator="algebraic_product", layer_selection="all")
+    plain = FuzzySuitability(membership_floor=0.0, **both).fit(X, y)
+    floored = FuzzySuitability(membership_floor=0.2, **both).fit(X, y)
     assert np.unique(plain.predict_proba(probe)[:, 1]).size == 1
     assert np.unique(floored.predict_proba(probe)[:, 1]).size == 3
 
@@ -509,7 +511,7 @@ def test_selection_keeps_the_signal_layer_and_drops_noise(params, global_random_
     np.testing.assert_allclose(model.predict_proba(X)[:, 1], mu[:, 0], atol=1e-12)
     # and it ranks held-out rows of the same construction better than all three layers
     Xt, yt = _signal_and_noise(np.random.default_rng(global_random_seed + 1))
-    every = FuzzySuitability().fit(X, y)
+    every = FuzzySuitability(layer_selection="all").fit(X, y)
     assert roc_auc_score(yt, model.predict_proba(Xt)[:, 1]) > roc_auc_score(yt, every.predict_proba(Xt)[:, 1])
 
 
@@ -607,8 +609,9 @@ def test_selection_errors(params, match):
 @parametrize_with_checks(
     [
         FuzzySuitability(),
-        FuzzySuitability(operator="gamma_operator", gamma=0.3, shape="cosine", categorical_features=[0]),
-        FuzzySuitability(operator="maximum", membership_floor=0.0, monotone={1: "increasing"}),
+        FuzzySuitability(operator="gamma_operator", gamma=0.3, shape="cosine", categorical_features=[0],
+                         layer_selection="all"),
+        FuzzySuitability(operator="maximum", membership_floor=0.0, monotone={1: "increasing"}, layer_selection="all"),
         FuzzySuitability(layer_selection="forward"),
         FuzzySuitability(layer_selection="top_k", max_layers=2, operator="algebraic_product"),
     ],
