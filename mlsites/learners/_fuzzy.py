@@ -335,7 +335,7 @@ class FuzzySuitability(ClassifierMixin, BaseEstimator):
         0 gives the plain trapezoid.
     rescale_product : bool, default True
         Report the result of "algebraic_product" and "gamma_operator" as its n-th
-        root (n = number of layers), the geometric mean per layer. The root keeps
+        root (n = number of layers used), the geometric mean per layer. The root keeps
         the order of cells (AUC, gains, zones do not change) but puts the score on
         the scale of one layer's membership: a product of a dozen memberships is
         otherwise below 0.01 almost everywhere, which crowds the whole landscape into

@@ -603,6 +603,21 @@ def test_selection_errors(params, match):
         FuzzySuitability(**params).fit(X, np.array([0, 1] * 3))
 
 
+def test_methods_paragraph_names_the_layers_used(global_random_seed):
+    # the report's fuzzy sentence (mlsites.report._methods) states the rule and the layers
+    # the final model combines; by construction only "tpi" carries the signal
+    from mlsites.report._methods import _fuzzy_layers, learner_settings
+
+    X, y = _signal_and_noise(np.random.default_rng(global_random_seed), signal=2)
+    frame = pd.DataFrame(X, columns=["slope", "northness", "tpi"])
+    model = FuzzySuitability().fit(frame, y)
+    folds = [FuzzySuitability().fit(frame.iloc[i::2], y[i::2]) for i in range(2)]
+    text = _fuzzy_layers(learner_settings("fuzzy", {}), (model, folds))
+    assert "forward selection" in text and "at least 0.005" in text
+    assert "the final model combines tpi (1 of 3 layers), each fold 1 layer" in text
+    assert _fuzzy_layers(learner_settings("fuzzy", {"layer_selection": "all"}), None) == "; every layer combined"
+
+
 # -- scikit-learn estimator contract -------------------------------------------------
 
 
