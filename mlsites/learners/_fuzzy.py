@@ -4,7 +4,8 @@ Each layer gets a membership function whose control points are percentiles of th
 layer's values at known sites; the memberships are combined by a fuzzy operator
 (minimum, maximum, algebraic product or sum, or the gamma operator of Zimmermann &
 Zysno 1980). Nothing is learned beyond those percentiles, the relative site density
-of each class of a categorical layer and, for the gamma operator, one exponent, so
+of each class of a categorical layer, which layers to combine (a stated rule on
+training AUC) and, for the gamma operator, one exponent, so
 the model is a transparent reference for the machine-learning presets in
 :mod:`mlsites.learners`.
 """

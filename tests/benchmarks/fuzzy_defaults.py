@@ -21,6 +21,9 @@ its five square-block folds. A rule becomes the default only if it loses no mean
 fold AUC on the virtual studies and gains on the demo. Prints one JSON line: mean
 fold AUC per rule and study, the layers the rule keeps on each study's full table,
 and the rule chosen by that test (of those passing, the best mean over all four studies).
+Result of one run (59 s): all layers 0.773 on the virtual studies, 0.597 on the demo;
+forward selection at tolerance 0.005 0.777 and 0.742 (soil and landform kept on the
+demo), chosen; top 3 0.759 / 0.706, top 5 0.767 / 0.680.
 """
 
 import argparse
