@@ -490,7 +490,7 @@ def _gradient_boosting(*, random_state, categorical_features, n_jobs, **params):
 
 
 def _fuzzy(*, random_state, categorical_features, n_jobs, **params):
-    """Percentile-fuzzy suitability (percentiles, class densities and one gamma)."""
+    """Percentile-fuzzy suitability (percentiles, class densities, layers chosen forward, one gamma)."""
     model = FuzzySuitability(categorical_features=list(categorical_features) or None)
     return _finish(None, model, params, "fuzzy")
 
@@ -561,8 +561,9 @@ def make_learner(name, *, random_state=None, categorical_features=(), n_jobs=1, 
     - "gradient_boosting": learning rate 0.1, 200 iterations, 15 leaves per tree,
       no early stopping; categorical layers split natively (at most 255 categories).
     - "fuzzy": :class:`FuzzySuitability` with its defaults: P20/40/60/80 trapezoids
-      with a membership floor of 0.2, the gamma operator with gamma chosen from the
-      training rows, categorical classes by relative site density.
+      with a membership floor of 0.2, layers chosen by forward selection on training
+      AUC, the gamma operator with gamma chosen from the training rows, categorical
+      classes by relative site density.
 
     References
     ----------

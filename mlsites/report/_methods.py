@@ -124,8 +124,8 @@ def learner_settings(name, params):
     return out
 
 
-def _fuzzy_gammas(run):
-    """(final gamma, list of fold gammas) of the run's fuzzy baseline, or None when its models are absent."""
+def _fuzzy_models(run):
+    """(final model, list of fold models) of the run's fuzzy baseline, or None when its models are absent."""
     if run.models_dir is None or not (run.models_dir / "fuzzy.card.json").is_file():
         return None
     from mlsites.errors import MlsitesError
@@ -137,10 +137,39 @@ def _fuzzy_gammas(run):
     except MlsitesError:
         return None
 
-    def gamma(est):
-        return getattr(est.named_steps["model"] if hasattr(est, "named_steps") else est, "gamma_", None)
+    def model(est):
+        return est.named_steps["model"] if hasattr(est, "named_steps") else est
 
-    return gamma(saved.estimator), [gamma(f) for f in folds]
+    return model(saved.estimator), [model(f) for f in folds]
+
+
+def _fuzzy_layers(p, models):
+    """How the fuzzy baseline chose its layers, and which the final model (and the folds) used."""
+    rule = p.get("layer_selection", "all")
+    if rule == "all":
+        return "; every layer combined"
+    if rule == "top_k":
+        text = (f"; the {p['max_layers']} layers whose own membership has the highest weighted training AUC "
+                "(sites against background), chosen in each fold from that fold's training rows only")
+    else:
+        limit = f", at most {p['max_layers']} layers" if p.get("max_layers") else ""
+        text = (f"; layers chosen in each fold from that fold's training rows only by forward selection: first "
+                f"the layer whose own membership has the highest weighted training AUC (sites against "
+                f"background), then, one at a time, the layer that raises the training AUC of the combination "
+                f"most, while it gains at least {_g(float(p['selection_tolerance']))}{limit}")
+        if p["operator"] == "gamma_operator" and p.get("gamma") is None:
+            text += " (the combination scored as the algebraic product until gamma is chosen on the layers kept)"
+    if models is None or getattr(models[0], "layers_used_", None) is None:
+        return text
+    final, folds = models
+    names = getattr(final, "feature_names_in_", None)
+    used = [str(names[j]) if names is not None else f"column {j}" for j in final.layers_used_]
+    text += f"; the final model combines {', '.join(used)} ({len(used)} of {final.n_features_in_} layers)"
+    counts = [len(f.layers_used_) for f in folds if getattr(f, "layers_used_", None) is not None]
+    if counts:
+        text += (f", each fold {counts[0]} layer{'s' if counts[0] != 1 else ''}" if min(counts) == max(counts)
+                 else f", the folds {min(counts)} to {max(counts)} layers")
+    return text
 
 
 def _learner_sentence(run, name, table):
@@ -175,6 +204,7 @@ def _learner_sentence(run, name, table):
                 "natively")
     if name == "fuzzy":
         op = p["operator"]
+        models = _fuzzy_models(run)
         text = (f"a percentile-fuzzy suitability baseline: per numeric layer a trapezoid membership from the "
                 f"P{_g(p['percentiles'][0])}/P{_g(p['percentiles'][1])}/P{_g(p['percentiles'][2])}/"
                 f"P{_g(p['percentiles'][3])} percentiles of the layer at the training sites, never below "
@@ -187,15 +217,15 @@ def _learner_sentence(run, name, table):
             else:
                 text += (", its gamma chosen in each fold from that fold's training rows only (the smallest gamma "
                          "on a grid of 0 to 1 by 0.05 whose weighted training AUC is within 0.001 of the best)")
-                gammas = _fuzzy_gammas(run)
+                gammas = None if models is None else (models[0].gamma_, [f.gamma_ for f in models[1]])
                 if gammas is not None and gammas[0] is not None:
                     folds = [g for g in gammas[1] if g is not None]
                     text += f": {_g(gammas[0])} for the final model"
                     if folds:
                         text += f", {_g(min(folds))} to {_g(max(folds))} in the folds"
         if op in ("gamma_operator", "algebraic_product") and p.get("rescale_product", True):
-            text += ", reported as the geometric mean per layer (same order of cells)"
-        return text
+            text += ", reported as the geometric mean per layer used (same order of cells)"
+        return text + _fuzzy_layers(p, models)
     return name
 
 

@@ -29,7 +29,8 @@ X_PROBE = np.array([10, 14, 19, 26, 31, 40, 50], dtype=float)
 MU_LINEAR = [0, 0.126214, 1, 1, 0.864341, 0.166667, 0]
 MU_COSINE = [0, 0.038793, 1, 1, 0.955275, 0.066987, 0]
 # the method as METHODS.md §10 states it: P5/25/75/95, trapezoids reaching 0, one layer
-PLAIN = dict(percentiles=(5, 25, 75, 95), membership_floor=0.0, operator="minimum")
+# (every layer: the rule choosing a subset of layers is ours, tested under "layer selection")
+PLAIN = dict(percentiles=(5, 25, 75, 95), membership_floor=0.0, operator="minimum", layer_selection="all")
 
 
 @pytest.fixture
@@ -263,7 +264,7 @@ def test_estimator_combines_layers_like_reference():
         ("maximum", np.maximum(mu1, mu2)),
         ("gamma_operator", fas**0.7 * fap**0.3),
     ]:
-        model = FuzzySuitability(operator=operator, gamma=0.7, percentiles=(5, 25, 75, 95),
+        model = FuzzySuitability(operator=operator, gamma=0.7, percentiles=(5, 25, 75, 95), layer_selection="all",
                                  membership_floor=0.0, rescale_product=False).fit(X, y)
         got = model.predict_proba(probe)[:, 1]
         np.testing.assert_allclose(got, expected, rtol=0, atol=1e-5)
@@ -329,7 +330,7 @@ def test_gamma_is_chosen_from_the_training_rows():
     # two layers, sites concentrated in the middle of the first one only
     X = np.column_stack([np.where(y == 1, rng.normal(0, 0.5, 300), rng.normal(0, 2, 300)), rng.normal(size=300)])
     w = np.where(y == 1, 1.0, 0.25)
-    model = FuzzySuitability(membership_floor=0.1).fit(X, y, sample_weight=w)
+    model = FuzzySuitability(membership_floor=0.1, layer_selection="all").fit(X, y, sample_weight=w)
     mu = model.predict_memberships(X)
     fap, fas = mu.prod(axis=1), 1 - (1 - mu).prod(axis=1)
     grid = np.linspace(0, 1, 21)
@@ -343,7 +344,7 @@ def test_gamma_is_chosen_from_the_training_rows():
     # a gamma given is used as it is
     assert FuzzySuitability(gamma=0.4).fit(X, y).gamma_ == 0.4
     # only the training rows count: a model refitted on half the rows chooses from those
-    half = FuzzySuitability(membership_floor=0.1).fit(X[::2], y[::2], sample_weight=w[::2])
+    half = FuzzySuitability(membership_floor=0.1, layer_selection="all").fit(X[::2], y[::2], sample_weight=w[::2])
     mu_h = half.predict_memberships(X[::2])
     fap_h, fas_h = mu_h.prod(axis=1), 1 - (1 - mu_h).prod(axis=1)
     auc_h = [roc_auc_score(y[::2], fas_h**g * fap_h ** (1 - g), sample_weight=w[::2]) for g in grid]
@@ -358,7 +359,7 @@ def test_rescaled_product_is_the_root_and_keeps_the_order():
     rng = np.random.default_rng(9)
     X = rng.normal(size=(200, 4))
     y = (rng.random(200) < 0.3).astype(int)
-    kwargs = dict(operator="algebraic_product", membership_floor=0.1)
+    kwargs = dict(operator="algebraic_product", membership_floor=0.1, layer_selection="all")
     root = FuzzySuitability(**kwargs).fit(X, y)
     plain = FuzzySuitability(rescale_product=False, **kwargs).fit(X, y)
     mu = root.predict_memberships(X)
@@ -366,7 +367,7 @@ def test_rescaled_product_is_the_root_and_keeps_the_order():
     np.testing.assert_allclose(plain.predict_proba(X)[:, 1], mu.prod(axis=1), rtol=1e-12)
     np.testing.assert_array_equal(rankdata(root.predict_proba(X)[:, 1]), rankdata(plain.predict_proba(X)[:, 1]))
     # minimum and maximum are already on the scale of one membership: no root
-    low = FuzzySuitability(operator="minimum", membership_floor=0.1).fit(X, y)
+    low = FuzzySuitability(operator="minimum", membership_floor=0.1, layer_selection="all").fit(X, y)
     np.testing.assert_allclose(low.predict_proba(X)[:, 1], low.predict_memberships(X).min(axis=1), rtol=1e-12)
 
 
@@ -378,8 +379,9 @@ def test_floor_keeps_cells_apart():
     X, y = _sites_and_background(SITES)
     X = np.column_stack([X[:, 0], X[:, 0]])
     probe = np.column_stack([np.full(3, 100.0), [20.0, 30.0, 40.0]])
-    plain = FuzzySuitability(operator="algebraic_product", membership_floor=0.0).fit(X, y)
-    floored = FuzzySuitability(operator="algebraic_product", membership_floor=0.2).fit(X, y)
+    both = dict(operator="algebraic_product", layer_selection="all")
+    plain = FuzzySuitability(membership_floor=0.0, **both).fit(X, y)
+    floored = FuzzySuitability(membership_floor=0.2, **both).fit(X, y)
     assert np.unique(plain.predict_proba(probe)[:, 1]).size == 1
     assert np.unique(floored.predict_proba(probe)[:, 1]).size == 3
 
@@ -476,14 +478,157 @@ def test_error_names_column_with_missing_category():
         FuzzySuitability(categorical_features=["soil"]).fit(X, [1, 1, 0, 0])
 
 
+# -- layer selection ------------------------------------------------------------------
+
+
+def _signal_and_noise(rng, n_sites=300, n_background=1200, signal=0):
+    """Three layers; sites sit in the middle of layer ``signal`` only (truth by construction).
+
+    Background values of every layer and site values of the other layers are all drawn
+    from N(0, 2), so those layers carry no information about sites.
+    """
+    y = np.r_[np.ones(n_sites, int), np.zeros(n_background, int)]
+    X = rng.normal(0.0, 2.0, size=(y.size, 3))
+    X[y == 1, signal] = rng.normal(0.0, 0.5, n_sites)
+    return X, y
+
+
+@pytest.mark.parametrize("params", [dict(layer_selection="forward"),
+                                    dict(layer_selection="top_k", max_layers=1)])
+def test_selection_keeps_the_signal_layer_and_drops_noise(params, global_random_seed):
+    from sklearn.metrics import roc_auc_score
+
+    X, y = _signal_and_noise(np.random.default_rng(global_random_seed))
+    model = FuzzySuitability(**params).fit(X, y)
+    np.testing.assert_array_equal(model.layers_used_, [0])
+    # layer_auc_ is sklearn's weighted AUC of each layer's own membership (equal weights here)
+    mu = model.predict_memberships(X)
+    np.testing.assert_allclose(model.layer_auc_, [roc_auc_score(y, mu[:, j]) for j in range(3)], atol=1e-12)
+    # the signal layer ranks sites well, the noise layers near chance (common practice: AUC 0.5 =
+    # no skill; in-sample, percentiles fitted to the sites' own values lift noise a little above it)
+    assert model.layer_auc_[0] > 0.65 and np.all(np.abs(model.layer_auc_[1:] - 0.5) < 0.08)
+    # one layer left: the prediction is that layer's membership (gamma operator of one layer = itself)
+    np.testing.assert_allclose(model.predict_proba(X)[:, 1], mu[:, 0], atol=1e-12)
+    # and it ranks held-out rows of the same construction better than all three layers
+    Xt, yt = _signal_and_noise(np.random.default_rng(global_random_seed + 1))
+    every = FuzzySuitability(layer_selection="all").fit(X, y)
+    assert roc_auc_score(yt, model.predict_proba(Xt)[:, 1]) > roc_auc_score(yt, every.predict_proba(Xt)[:, 1])
+
+
+def test_forward_selection_follows_its_stopping_rule(global_random_seed):
+    # reference: sklearn.metrics.roc_auc_score of the algebraic product (METHODS.md §10
+    # FAP) of the chosen memberships, recomputed here; every step gains at least the
+    # tolerance and no further layer would
+    from sklearn.metrics import roc_auc_score
+
+    rng = np.random.default_rng(global_random_seed)
+    y = np.r_[np.ones(200, int), np.zeros(800, int)]
+    X = rng.normal(0.0, 2.0, size=(y.size, 4))
+    X[y == 1, 0] = rng.normal(0.0, 0.8, 200)  # two weaker signals in layers 0 and 2
+    X[y == 1, 2] = rng.normal(0.0, 0.8, 200)
+    w = np.where(y == 1, 1.0, 0.25)
+    tol = 0.005
+    model = FuzzySuitability(layer_selection="forward", selection_tolerance=tol).fit(X, y, sample_weight=w)
+    used = model.layers_used_.tolist()
+    assert sorted(used[:2]) == [0, 2]
+    mu = model.predict_memberships(X)
+    steps = [roc_auc_score(y, mu[:, used[:i]].prod(axis=1), sample_weight=w) for i in range(1, len(used) + 1)]
+    np.testing.assert_allclose(model.selection_auc_, steps, atol=1e-12)
+    assert np.all(np.diff(steps) >= tol)
+    rest = [j for j in range(4) if j not in used]
+    assert all(roc_auc_score(y, mu[:, used + [j]].prod(axis=1), sample_weight=w) - steps[-1] < tol for j in rest)
+    # gamma is then chosen on the chosen layers only
+    fap, fas = mu[:, used].prod(axis=1), 1 - (1 - mu[:, used]).prod(axis=1)
+    auc = [roc_auc_score(y, fas**g * fap ** (1 - g), sample_weight=w) for g in np.linspace(0, 1, 21)]
+    np.testing.assert_allclose(model.gamma_auc_, auc, atol=1e-12)
+    # max_layers caps the count
+    assert FuzzySuitability(layer_selection="forward", max_layers=1).fit(X, y, sample_weight=w).layers_used_.size == 1
+
+
+def test_selection_uses_the_training_rows_only(global_random_seed):
+    # the "training" half carries its signal in layer 0, the "held-out" half in layer 1:
+    # each half alone chooses its own layer, and rows of weight 0 (or left out) do not
+    # move the choice
+    rng = np.random.default_rng(global_random_seed)
+    Xa, ya = _signal_and_noise(rng, signal=0)
+    Xb, yb = _signal_and_noise(rng, signal=1)
+    X, y = np.vstack([Xa, Xb]), np.r_[ya, yb]
+    w = np.r_[np.ones(ya.size), np.zeros(yb.size)]
+    for params in (dict(layer_selection="forward"), dict(layer_selection="top_k", max_layers=1)):
+        assert FuzzySuitability(**params).fit(Xa, ya).layers_used_.tolist() == [0]
+        assert FuzzySuitability(**params).fit(Xb, yb).layers_used_.tolist() == [1]
+        assert FuzzySuitability(**params).fit(X, y, sample_weight=w).layers_used_.tolist() == [0]
+
+
+def test_all_layers_is_the_former_model(global_random_seed):
+    # the former model by construction (METHODS.md §10 operators): gamma = the smallest
+    # of 0, 0.05, ..., 1 whose weighted training AUC (sklearn) is within 0.001 of the
+    # best, over every layer's membership, reported as the n-th root
+    from sklearn.metrics import roc_auc_score
+
+    rng = np.random.default_rng(global_random_seed)
+    X = rng.normal(size=(400, 5))
+    y = (X[:, 0] ** 2 + rng.normal(size=400) < 0.8).astype(int)
+    w = rng.uniform(0.5, 2.0, 400)
+    model = FuzzySuitability(layer_selection="all").fit(X, y, sample_weight=w)
+    np.testing.assert_array_equal(model.layers_used_, np.arange(5))
+    assert model.selection_auc_ is None
+    mu = model.predict_memberships(X)
+    fap, fas = mu.prod(axis=1), 1 - (1 - mu).prod(axis=1)
+    grid = np.linspace(0, 1, 21)
+    auc = np.array([roc_auc_score(y, fas**g * fap ** (1 - g), sample_weight=w) for g in grid])
+    g = grid[np.flatnonzero(auc >= auc.max() - 1e-3)[0]]
+    probe = rng.normal(size=(50, 5))
+    mp = model.predict_memberships(probe)
+    expected = ((1 - (1 - mp).prod(axis=1)) ** g * mp.prod(axis=1) ** (1 - g)) ** (1 / 5)
+    np.testing.assert_allclose(model.predict_proba(probe)[:, 1], expected, rtol=1e-12, atol=1e-15)
+    # top_k keeping every layer is the same model
+    every = FuzzySuitability(layer_selection="top_k", max_layers=5).fit(X, y, sample_weight=w)
+    np.testing.assert_array_equal(every.predict_proba(probe), model.predict_proba(probe))
+
+
+@pytest.mark.parametrize(
+    "params, match",
+    [
+        ({"layer_selection": "best"}, "Unknown layer_selection"),
+        ({"layer_selection": "top_k"}, "needs max_layers"),
+        ({"layer_selection": "forward", "max_layers": 0}, "max_layers must be"),
+        ({"layer_selection": "forward", "max_layers": 2.5}, "max_layers must be"),
+        ({"layer_selection": "forward", "selection_tolerance": -0.1}, "selection_tolerance must be"),
+    ],
+)
+def test_selection_errors(params, match):
+    X = np.arange(12.0).reshape(6, 2)
+    with pytest.raises(InputError, match=match):
+        FuzzySuitability(**params).fit(X, np.array([0, 1] * 3))
+
+
+def test_methods_paragraph_names_the_layers_used(global_random_seed):
+    # the report's fuzzy sentence (mlsites.report._methods) states the rule and the layers
+    # the final model combines; by construction only "tpi" carries the signal
+    from mlsites.report._methods import _fuzzy_layers, learner_settings
+
+    X, y = _signal_and_noise(np.random.default_rng(global_random_seed), signal=2)
+    frame = pd.DataFrame(X, columns=["slope", "northness", "tpi"])
+    model = FuzzySuitability().fit(frame, y)
+    folds = [FuzzySuitability().fit(frame.iloc[i::2], y[i::2]) for i in range(2)]
+    text = _fuzzy_layers(learner_settings("fuzzy", {}), (model, folds))
+    assert "forward selection" in text and "at least 0.005" in text
+    assert "the final model combines tpi (1 of 3 layers), each fold 1 layer" in text
+    assert _fuzzy_layers(learner_settings("fuzzy", {"layer_selection": "all"}), None) == "; every layer combined"
+
+
 # -- scikit-learn estimator contract -------------------------------------------------
 
 
 @parametrize_with_checks(
     [
         FuzzySuitability(),
-        FuzzySuitability(operator="gamma_operator", gamma=0.3, shape="cosine", categorical_features=[0]),
-        FuzzySuitability(operator="maximum", membership_floor=0.0, monotone={1: "increasing"}),
+        FuzzySuitability(operator="gamma_operator", gamma=0.3, shape="cosine", categorical_features=[0],
+                         layer_selection="all"),
+        FuzzySuitability(operator="maximum", membership_floor=0.0, monotone={1: "increasing"}, layer_selection="all"),
+        FuzzySuitability(layer_selection="forward"),
+        FuzzySuitability(layer_selection="top_k", max_layers=2, operator="algebraic_product"),
     ],
     # The one-class semantics are declared through tags (multi_class=False,
     # poor_score=True). Integer weights are not the same as repeated rows for the
