@@ -484,6 +484,12 @@ def _check_values(s, bad):
                 "contribution_max_cells"):
         if ex[key] < 1:
             bad(f"explain.{key}", f"must be at least 1, got {ex[key]}")
+    n_land = s["sampling"]["background_count"]
+    for key in ("n_explain", "n_background"):
+        if n_land is not None and 1 <= n_land < ex[key]:
+            bad(f"explain.{key}", f"{ex[key]} landscape cells asked for, but [sampling] background_count = "
+                f"{n_land} draws only {n_land} from the study area; set {key} to at most {n_land} or draw more "
+                "background cells")
     if not 0 < ex["correlation_threshold"] < 1:
         bad("explain.correlation_threshold", f"must lie in (0, 1), got {ex['correlation_threshold']}")
     if not all(isinstance(v, str) for v in ex["survey_layers"]):

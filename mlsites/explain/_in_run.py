@@ -195,7 +195,7 @@ def contribution_grid(grid, max_cells):
         raise InputError(f"contribution_max_cells={max_cells!r}; expected a whole number of cells >= 1")
     if grid.n_cells <= max_cells:
         return grid, 1
-    f = max(2, math.ceil(math.sqrt(grid.n_cells / max_cells)))
+    f = max(2, math.floor(math.sqrt(grid.n_cells / max_cells)))
     while True:
         coarse = grid.coarsened(max(1, math.ceil(max(grid.shape) / f)))
         if coarse.n_cells <= max_cells or coarse.shape == (1, 1):
