@@ -84,7 +84,7 @@ SCHEMA: dict[str, dict[str, tuple]] = {
         "n_ice": (int, 30, False),
         "survey_layers": (list, [], False),
         "correlation_threshold": (_NUM, 0.8, False),
-        "contribution_max_cells": (int, 40000, False),
+        "contribution_max_cells": (int, 5000, False),
     },
     "outputs": {
         "runs_dir": (str, "runs", True),

@@ -204,7 +204,7 @@ def contribution_grid(grid, max_cells):
 
 
 def write_contribution_maps(explainer, layers, source, out_dir, *, features, max_cells, learner="",
-                            block_rows=256, block_cols=2048, quiet=True, log=None):
+                            block_rows=None, block_cols=None, quiet=True, log=None):
     """Per-cell SHAP values of ``layers`` as one GeoTIFF each, plus ``contributions.json``.
 
     Parameters
@@ -223,6 +223,9 @@ def write_contribution_maps(explainer, layers, source, out_dir, *, features, max
         At most this many cells: a larger map grid is read coarser
         (:func:`contribution_grid`; continuous layers resampled bilinearly,
         categorical ones by nearest neighbour).
+    block_rows, block_cols : int, optional
+        Window size in contribution cells (default: whole rows, about 2048 cells
+        per window). The values do not depend on it.
 
     Returns
     -------
@@ -255,7 +258,10 @@ def write_contribution_maps(explainer, layers, source, out_dir, *, features, max
     layers = list(layers)
     features = list(features)
     grid, factor = contribution_grid(source.grid, max_cells)
-    windows = list(iter_windows(grid, block_rows=block_rows, block_cols=block_cols))
+    if block_rows is None:
+        # windows of about 2048 cells: the progress bar moves, and SHAP needs no larger batches
+        block_rows = max(1, 2048 // grid.width)
+    windows = list(iter_windows(grid, block_rows=int(block_rows), block_cols=block_cols))
     n_valid = 0
     cell = [abs(float(v)) for v in grid.res]
     tags = {"software": f"mlsites {__version__}", "model": learner, "units": explainer.output_space,

@@ -37,7 +37,7 @@ EXPLAIN_DEFAULTS = {
     "survey_layers": [],
     "correlation_threshold": DEFAULT_CORRELATION_THRESHOLD,
     # read by the run's contribution maps (mlsites.explain._in_run), not by explain_learners
-    "contribution_max_cells": 40000,
+    "contribution_max_cells": 5000,
 }
 
 
