@@ -230,3 +230,33 @@ def test_an_explanation_sample_larger_than_the_landscape_is_refused_at_load(tmp_
     with pytest.raises(ConfigError, match=r"explain\.n_explain.*701 landscape cells.*background_count = 700"):
         load_experiment(path)
     assert not (tmp_path / "runs").exists()
+
+
+def test_buffered_leave_one_out_fold_rows_are_the_background_within_the_buffer():
+    """For buffered leave-one-site-out the landscape of a fold is the background
+    within the buffer of its site (cross_validate's n_test_background counts it),
+    and the site rows are that site's cells; checked by hand on a line of cells."""
+    from mlsites.evaluation import cross_validate
+    from mlsites.explain._in_run import heldout_fold_rows
+    from mlsites.folds import BufferedLeaveOneSiteOut
+    from mlsites.learners import make_learner
+
+    rng = np.random.default_rng(0)
+    x = np.arange(60, dtype=float) * 10.0  # cells 10 m apart along a line
+    label = np.zeros(60, dtype=int)
+    label[[5, 6, 30, 50]] = 1
+    site = np.where(label == 1, np.array(["A"] * 60, dtype=object), None)
+    site[[30]], site[[50]] = "B", "C"
+    table = pd.DataFrame({"sample_id": np.arange(60), "label": label, "weight": np.where(label == 1, 0.5, 1.0),
+                          "site_id": site, "fold": -1, "v": rng.normal(size=60)})
+    table.loc[[30, 50], "weight"] = 1.0
+    splitter = BufferedLeaveOneSiteOut(x, np.zeros(60), table["site_id"].to_numpy(), buffer=25.0)
+    rows = heldout_fold_rows(table, splitter)
+    # site A: cells 5 and 6; background within 25 m of them: cells 3, 4, 7, 8 (common sense on a line)
+    sites, w, land = rows[0]
+    assert sites.tolist() == [5, 6] and w.tolist() == [0.5, 0.5] and land.tolist() == [3, 4, 7, 8]
+    assert rows[1][2].tolist() == [28, 29, 31, 32]
+    res = cross_validate(table, features=["v"], learners={"logistic": lambda: make_learner("logistic")},
+                         splitter=splitter)
+    counts = res.by_fold[res.by_fold["fold"] != "all"]["n_test_background"].tolist()
+    assert counts == [r[2].size for r in rows]
