@@ -308,7 +308,8 @@ def write_contribution_maps(explainer, layers, source, out_dir, *, features, max
         }
         (staging / "contributions.json").write_text(json.dumps(info, indent=2) + "\n")
     log(f"contributions {learner}: {', '.join(layers)} on {grid.height} x {grid.width} cells of "
-        f"{cell[0]:g} x {cell[1]:g} ({resolution}), {n_valid} cells explained in {seconds:.1f} s")
+        f"{cell[0]:g} x {cell[1]:g} ({resolution}), {n_valid} cells explained in {seconds:.1f} s; "
+        f"{grid.n_cells - n_valid} cells without a value in every layer left nodata")
     return info
 
 
