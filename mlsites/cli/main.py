@@ -17,6 +17,7 @@ _COMMANDS = {
     "sample": ("mlsites.cli.sample", "sample", "Build the sample table and folds of an experiment."),
     "periods": ("mlsites.cli.periods", "periods", "Sites through time: blocks, envelopes, density maps."),
     "map": ("mlsites.cli.map", "map_command", "Map a saved model: potential, zones and spread rasters."),
+    "explain": ("mlsites.cli.explain", "explain", "Explain a saved model: SHAP, held-out importance, response curves."),
     "check": ("mlsites.cli.check", "check", "Check a saved model on sites found after it was made."),
     "report": ("mlsites.cli.report", "report", "Rebuild the HTML report of a finished run."),
 }

@@ -81,8 +81,10 @@ SCHEMA: dict[str, dict[str, tuple]] = {
         "n_permutations": (int, 10, False),
         "n_repeats": (int, 5, False),
         "n_grid": (int, 20, False),
+        "n_ice": (int, 30, False),
         "survey_layers": (list, [], False),
         "correlation_threshold": (_NUM, 0.8, False),
+        "contribution_max_cells": (int, 5000, False),
     },
     "outputs": {
         "runs_dir": (str, "runs", True),
@@ -482,13 +484,22 @@ def _check_values(s, bad):
         bad("evaluation.top_area_shares", f"{shares!r} repeats a share; list each share once")
     _check_terrain(s["terrain"], s["distances"], bad)
     ex = s["explain"]
-    for key in ("n_explain", "n_background", "n_permutations", "n_repeats", "n_grid"):
+    for key in ("n_explain", "n_background", "n_permutations", "n_repeats", "n_grid", "n_ice",
+                "contribution_max_cells"):
         if ex[key] < 1:
             bad(f"explain.{key}", f"must be at least 1, got {ex[key]}")
+    n_land = s["sampling"]["background_count"]
+    for key in ("n_explain", "n_background"):
+        if n_land is not None and 1 <= n_land < ex[key]:
+            bad(f"explain.{key}", f"{ex[key]} landscape cells asked for, but [sampling] background_count = "
+                f"{n_land} draws only {n_land} from the study area; set {key} to at most {n_land} or draw more "
+                "background cells")
     if not 0 < ex["correlation_threshold"] < 1:
         bad("explain.correlation_threshold", f"must lie in (0, 1), got {ex['correlation_threshold']}")
     if not all(isinstance(v, str) for v in ex["survey_layers"]):
         bad("explain.survey_layers", "expected a list of layer names, e.g. [\"distance_roads\"]")
+    else:
+        _check_survey_layers(s, ex["survey_layers"], bad)
     maps = s["maps"]["learners"]
     if isinstance(maps, str) and maps not in MAP_CHOICES:
         bad("maps.learners", f"{maps!r} is not one of {', '.join(MAP_CHOICES)} (or a list of learner names)")
@@ -525,6 +536,32 @@ def _check_check(c, used, bad):
         if not learners or unused or not all(isinstance(m, str) for m in learners):
             bad("check.learners", f"{unused or learners} not among the learners used ({', '.join(used)}); "
                 "leave it out to check the learners the run maps")
+
+
+def _feature_names(s):
+    """The feature names an experiment's samples will have, or None when its terrain settings are bad."""
+    from mlsites.errors import InputError
+    from mlsites.experiment._samples import _is_feature
+    from mlsites.terrain._pipeline import TerrainSettings, layer_names
+
+    t = s["terrain"]
+    try:
+        names = layer_names(TerrainSettings(layers=tuple(t["layers"]), tpi_radii_m=tuple(t["tpi_radii_m"]),
+                                            vectors=dict(s["distances"])))
+    except (InputError, TypeError, ValueError):
+        return None
+    return [n for n in names if _is_feature(n, names)] + [n for n in s["inputs"] if n not in names]
+
+
+def _check_survey_layers(s, survey_layers, bad):
+    features = _feature_names(s)
+    if features is None:
+        return
+    unknown = [v for v in survey_layers if v not in features]
+    if unknown:
+        bad("explain.survey_layers", f"{', '.join(map(repr, unknown))} {'is' if len(unknown) == 1 else 'are'} not "
+            f"a feature of this experiment; its features are {', '.join(features)} (name a layer of [inputs], "
+            "[distances] as distance_<name>, or [terrain] layers)")
 
 
 def _check_terrain(t, distances, bad):

@@ -36,6 +36,8 @@ EXPLAIN_DEFAULTS = {
     "n_ice": 30,
     "survey_layers": [],
     "correlation_threshold": DEFAULT_CORRELATION_THRESHOLD,
+    # read by the run's contribution maps (mlsites.explain._in_run), not by explain_learners
+    "contribution_max_cells": 5000,
 }
 
 

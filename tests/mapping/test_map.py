@@ -107,7 +107,10 @@ def test_applicability_layers_equal_the_whole_array_model(study_run, maps, learn
     saved = load_model(card_of(study_run, learner))
     card = saved.card
     table = pd.read_parquet(card["training_table"]["path"])
+    # the run's explanation stage writes the layer weights into the card
+    assert card.get("applicability_weights")
     model = ApplicabilityModel().fit(table[card["features"]], table["fold"].to_numpy(),
+                                     weights=card["applicability_weights"],
                                      sample_weight=table["weight"].to_numpy(), categorical=card["categorical"])
     X, valid = whole_features(card)
     di = read_band(maps[learner].out_dir / "dissimilarity.tif")

@@ -99,6 +99,8 @@ def _explain(run_dir, models_dir, table, features, categorical):
     from mlsites.experiment._models import load_fold_models, load_model
     from mlsites.explain import explain_learners
 
+    # the run's own explanation stage wrote explain/ already; these tests draw it from their own files
+    shutil.rmtree(run_dir / "explain", ignore_errors=True)
     models, folds = {}, {}
     fold_ids = np.sort(table["fold"].unique())
     label, weight, fold = table["label"].to_numpy(), table["weight"].to_numpy(), table["fold"].to_numpy()

@@ -139,6 +139,7 @@ def test_the_run_writes_its_report(study):
     assert set(stage["left_out"]) == absent
     for s in absent - {"check"}:
         assert f"{stage_files[s]} not found" in html_text
+    assert (run_dir / "explain" / "importance.csv").is_file()  # the run's explanation stage wrote it
     assert _section_ids(html_text) == ALL_SECTIONS
     assert not list(run_dir.glob(".*partial*"))
 
