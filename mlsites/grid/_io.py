@@ -227,6 +227,12 @@ _STOP = object()
 #: Overview builds running at once, over all writers: each holds chunks of several
 #: full-width rows, so a stage finishing a dozen layers together stays bounded.
 _OVERVIEW_BUILDS = threading.Semaphore(max(1, os.cpu_count() or 1))
+#: Every GDAL call on a writer's dataset holds this lock. Writers' threads then
+#: never call GDAL at the same time as each other or as the caller's calls on
+#: another writer (closing one while another wrote, or even asking one for its
+#: overviews, crashed the process now and then: a segmentation fault or a double
+#: free in GDAL). Computing still overlaps writing; only the writers take turns.
+_GDAL_CALLS = threading.RLock()
 
 
 @functools.lru_cache(maxsize=None)
@@ -391,11 +397,12 @@ class RasterWriter(contextlib.AbstractContextManager):
             # already (GDAL's pool on top cost 15 % more CPU and wall time).
             NUM_THREADS="1" if max_pending else "ALL_CPUS",
         )
-        self._ds = rasterio.open(self._tmp, "w", **profile)
-        if tags:
-            self._ds.update_tags(**{k: str(v) for k, v in tags.items()})
-        if description:
-            self._ds.set_band_description(1, description)
+        with _GDAL_CALLS:
+            self._ds = rasterio.open(self._tmp, "w", **profile)
+            if tags:
+                self._ds.update_tags(**{k: str(v) for k, v in tags.items()})
+            if description:
+                self._ds.set_band_description(1, description)
         self._error: BaseException | None = None
         self._cancelled = False
         self._cells_written = 0
@@ -441,7 +448,8 @@ class RasterWriter(contextlib.AbstractContextManager):
         return arr.astype(self.dtype, copy=False)
 
     def _write_now(self, arr, window):
-        self._ds.write(arr, 1, window=window)
+        with _GDAL_CALLS:
+            self._ds.write(arr, 1, window=window)
         # Once as many cells as the grid has are written, the overviews are built
         # here (in the writer's thread), so several writers finishing together
         # build theirs at the same time. A later write (windows that overlap)
@@ -458,7 +466,7 @@ class RasterWriter(contextlib.AbstractContextManager):
             factors.append(f)
             f *= 2
         if factors:
-            with _OVERVIEW_BUILDS:
+            with _OVERVIEW_BUILDS, _GDAL_CALLS:
                 self._ds.build_overviews(factors, Resampling.nearest if self.categorical else Resampling.average)
         self._overviews_built = True
 
@@ -495,17 +503,18 @@ class RasterWriter(contextlib.AbstractContextManager):
         self._raise_pending()
         if not self._overviews_built:
             self._build_overviews()
-        if self._ds.overviews(1):
-            resampling = Resampling.nearest if self.categorical else Resampling.average
-            self._ds.update_tags(ns="rio_overview", resampling=resampling.name)
-        self._ds.close()
+        with _GDAL_CALLS:
+            if self._ds.overviews(1):
+                resampling = Resampling.nearest if self.categorical else Resampling.average
+                self._ds.update_tags(ns="rio_overview", resampling=resampling.name)
+            self._ds.close()
         os.replace(self._tmp, self.path)
 
     def abort(self):
         """Stop the background thread, close and remove the temporary file (called on error)."""
         self._cancelled = True
         self._stop_thread()
-        with contextlib.suppress(Exception):
+        with contextlib.suppress(Exception), _GDAL_CALLS:
             self._ds.close()
         with contextlib.suppress(FileNotFoundError):
             self._tmp.unlink()
