@@ -82,14 +82,8 @@ def test_default_folder_is_beside_the_runs(tmp_path):
     assert (tmp_path / "runs" / "t_periods" / "blocks.csv").exists()
 
 
-@pytest.mark.parametrize("case, fragment", [
-    ("end_before_start", "have an end year before their start year"),
-    ("category_missing", "'third' (1 record)"),
-    ("window_outside", "time window 'far' [500, 600) overlaps no site's date range"),
-    ("narrow_blocks", "[periods.block_width_years] 0.5 years; blocks must be at least a year wide"),
-    ("too_many_blocks", "at most 10000 are allowed"),
-])
-def test_bad_input_is_one_line_exit_2_and_nothing_written(tmp_path, case, fragment):
+def _bad_study(tmp_path, case):
+    """The study with one kind of bad date input (see the cases below)."""
     sites, periods, kw = SITES.copy(), "", {}
     if case == "end_before_start":
         sites.loc[0, ["start", "end"]] = [-3150.0, -3450.0]
@@ -102,7 +96,18 @@ def test_bad_input_is_one_line_exit_2_and_nothing_written(tmp_path, case, fragme
     else:  # one-year blocks over the sites' own span, which reaches back to -20000
         sites.loc[0, "start"] = -20000.0
         kw = {"width": 1, "span": ""}
-    exp = _study(tmp_path, sites=sites, periods=periods, **kw)
+    return _study(tmp_path, sites=sites, periods=periods, **kw)
+
+
+@pytest.mark.parametrize("case, fragment", [
+    ("end_before_start", "have an end year before their start year"),
+    ("category_missing", "'third' (1 record)"),
+    ("window_outside", "time window 'far' [500, 600) overlaps no site's date range"),
+    ("narrow_blocks", "[periods.block_width_years] 0.5 years; blocks must be at least a year wide"),
+    ("too_many_blocks", "at most 10000 are allowed"),
+])
+def test_bad_input_is_one_line_exit_2_and_nothing_written(tmp_path, case, fragment):
+    exp = _bad_study(tmp_path, case)
     res = invoke(exp, "--out", tmp_path / "out", "-q")
     assert res.exit_code == 2, res.output
     assert fragment in res.stderr and "Traceback" not in res.stderr
@@ -122,17 +127,7 @@ def test_bad_input_is_one_line_exit_2_and_nothing_written(tmp_path, case, fragme
 def test_a_run_with_bad_dates_stops_at_its_checks(tmp_path, case, fragment):
     # the same bad input through `mlsites run`: caught with the run's other checks, before any
     # sampling, so no run folder and no cache is made
-    sites, periods, kw = SITES.copy(), "", {}
-    if case == "end_before_start":
-        sites.loc[0, ["start", "end"]] = [-3150.0, -3450.0]
-    elif case == "category_missing":
-        sites.loc[2, "phase"] = "third"
-    elif case == "window_outside":
-        periods = "[periods.windows]\nfar = [500, 600]\n"
-    else:
-        sites.loc[0, "start"] = -20000.0
-        kw = {"width": 1, "span": ""}
-    exp = _study(tmp_path, sites=sites, periods=periods, **kw)
+    exp = _bad_study(tmp_path, case)
     before = set(tmp_path.iterdir())
     res = CliRunner().invoke(cli, ["run", str(exp), "--quiet"])
     assert res.exit_code == 2, res.output
