@@ -224,9 +224,6 @@ CODECS = {
 }
 
 _STOP = object()
-#: Overview builds running at once, over all writers: each holds chunks of several
-#: full-width rows, so a stage finishing a dozen layers together stays bounded.
-_OVERVIEW_BUILDS = threading.Semaphore(max(1, os.cpu_count() or 1))
 #: Every GDAL call on a writer's dataset holds this lock. Writers' threads then
 #: never call GDAL at the same time as each other or as the caller's calls on
 #: another writer (closing one while another wrote, or even asking one for its
@@ -466,7 +463,7 @@ class RasterWriter(contextlib.AbstractContextManager):
             factors.append(f)
             f *= 2
         if factors:
-            with _OVERVIEW_BUILDS, _GDAL_CALLS:
+            with _GDAL_CALLS:  # one build at a time over all writers, so memory stays bounded too
                 self._ds.build_overviews(factors, Resampling.nearest if self.categorical else Resampling.average)
         self._overviews_built = True
 

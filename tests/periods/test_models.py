@@ -12,8 +12,8 @@ from mlsites.errors import InputError
 from mlsites.learners import make_learner
 from mlsites.periods import fit_window_models, window_probabilities, window_table, window_weights
 from mlsites.sampling import sample_weights
-from mlsites.synthetic import TWO_PHASES, make_landscape, make_phased_sites
-from mlsites.terrain import distance_to_cells, slope, tpi
+from mlsites.synthetic import TWO_PHASES
+from tests.synthetic.phased import phased_study
 
 LAYERS = ("slope", "tpi", "stream_distance")
 LEARNERS = {"logistic": functools.partial(make_learner, "logistic", random_state=0),
@@ -67,12 +67,8 @@ def test_sites_below_the_minimum_are_listed_never_silently_dropped():
 @pytest.fixture(scope="module")
 def phased_table():
     """A sample table of two-phase virtual sites (one cell each) and 1500 background cells, 3 block folds."""
-    land = make_landscape((160, 160), cellsize=20.0, random_state=3, valley_width_m=900.0, relief_m=150.0)
-    dem = land.dem.astype(np.float64)
-    layers = {"slope": slope(dem, 20.0), "tpi": tpi(dem, 20.0, radius=200.0),
-              "stream_distance": distance_to_cells(land.streams > 0, 20.0)}
-    grid = land.grid
-    sites = make_phased_sites(layers, grid, n_sites=240, random_state=5).sites
+    grid, layers, phased = phased_study()
+    sites = phased.sites
     r, c = grid.rowcol(sites.geometry.x.to_numpy(), sites.geometry.y.to_numpy())
     rng = np.random.default_rng(0)
     valid = np.flatnonzero(np.isfinite(np.stack([layers[k] for k in LAYERS])).all(axis=0).ravel())

@@ -7,15 +7,12 @@ from mlsites.errors import InputError
 from mlsites.periods import date_ranges, window_probabilities
 from mlsites.synthetic import PHASED_CATEGORIES, TWO_PHASES, make_landscape, make_phased_sites
 from mlsites.terrain import distance_to_cells, slope, tpi
+from tests.synthetic.phased import phased_study
 
 
 @pytest.fixture(scope="module")
 def phased():
-    land = make_landscape((160, 160), cellsize=20.0, random_state=3, valley_width_m=900.0, relief_m=150.0)
-    dem = land.dem.astype(np.float64)
-    layers = {"slope": slope(dem, 20.0), "tpi": tpi(dem, 20.0, radius=200.0),
-              "stream_distance": distance_to_cells(land.streams > 0, 20.0)}
-    return land.grid, layers, make_phased_sites(layers, land.grid, n_sites=240, random_state=5)
+    return phased_study()
 
 
 def _values(grid, layer, sites):
